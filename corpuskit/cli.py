@@ -1,0 +1,283 @@
+"""The command line: parse, validate, call the library, print.  Exit codes: 0 success,
+1 a run that failed on data, 2 a usage or recipe error."""
+from __future__ import annotations
+
+import contextlib
+import gzip
+import json
+import shutil
+import sys
+import time
+from pathlib import Path
+from typing import Optional
+
+import typer
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.table import Table
+
+from .errors import CorpusError
+
+app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_show_locals=False,
+                  help="Turn scattered text in a mostly-spoken language into a clean, documented corpus.")
+err = Console(stderr=True)
+out = Console()
+
+
+@app.callback()
+def _root() -> None:
+    """corpuskit: one staged recipe from scattered sources to a documented corpus."""
+
+
+def _fail(exc: CorpusError) -> None:
+    err.print(f"[bold red]error:[/] {exc}", highlight=False, soft_wrap=True)
+    raise typer.Exit(exc.exit_code)
+
+
+def _progress_factory(enabled: bool):
+    progress = Progress(TextColumn("{task.description:<20}"), BarColumn(), MofNCompleteColumn(),
+                        TextColumn("{task.fields[docs]} docs, {task.fields[rate]} docs/s"), TimeElapsedColumn(),
+                        console=err, disable=not enabled)
+
+    @contextlib.contextmanager
+    def stage(name: str, total: int):
+        if total == 0:
+            yield lambda n: None
+            return
+        started = time.perf_counter()
+        task = progress.add_task(name, total=total, docs=0, rate="-")
+        done = {"docs": 0}
+
+        def tick(n: int):
+            done["docs"] += n
+            rate = done["docs"] / max(time.perf_counter() - started, 1e-6)
+            progress.update(task, advance=1, docs=done["docs"], rate=f"{rate:,.0f}")
+        yield tick
+
+    return progress, stage
+
+
+def _summary(result) -> None:
+    t = Table(title="Run summary", title_justify="left")
+    for col in ("stage", "docs in", "docs out", "segs in", "segs out", "computed", "reused", "removed (reason: count)"):
+        t.add_column(col, justify="left" if col in ("stage", "removed (reason: count)") else "right")
+    for s in result.stages:
+        c = s.counts
+        removed = ", ".join(f"{k.split(':', 1)[1]}: {v}" for k, v in sorted(c.removed.items()))
+        t.add_row(s.name, str(c.docs_in), str(c.docs_out), str(c.segs_in), str(c.segs_out), str(s.computed),
+                  str(s.reused), removed or "-")
+    out.print(t)
+    ingest = result.stages[0]
+    per_source = result.manifest and result.manifest.get("counts")
+    del per_source, ingest
+    if result.conservation:
+        cd, cs = result.conservation["documents"], result.conservation["segments"]
+        ok = cd["holds"] and cs["holds"]
+        out.print(f"Conservation: documents {cd['in']} = {cd['kept']} kept + {cd['removed']} removed; "
+                  f"segments {cs['in']} = {cs['kept']} kept + {cs['removed']} removed: "
+                  + ("[green]holds[/]" if ok else "[red]FAILS[/]"), highlight=False)
+    for w in result.warnings[:20]:
+        err.print(f"[yellow]warning:[/] {w}", highlight=False, soft_wrap=True)
+
+
+def _where(result) -> None:
+    o = result.out
+    out.print(f"\nCorpus:     {o / 'corpus'}  (public shards and corpus.txt)", highlight=False)
+    if (o / "restricted").exists() and any((o / "restricted").iterdir()):
+        out.print(f"Restricted: {o / 'restricted'}  (not for redistribution)", highlight=False)
+    out.print(f"Splits:     {o / 'splits'}", highlight=False)
+    out.print(f"Tokenizer:  {o / 'tokenizer'}", highlight=False)
+    out.print(f"Reports:    {o / 'reports'}  (open balance.html)", highlight=False)
+    out.print(f"Ledger:     {o / 'ledger.jsonl.gz'}", highlight=False)
+    out.print(f"Datasheet:  {o / 'datasheet.md'}", highlight=False)
+    out.print(f"Manifest:   {o / 'manifest.json'}", highlight=False)
+
+
+def _run(recipe: Path, out_dir: Path, engine: str, workers: Optional[int], scheduler: Optional[str],
+         until: Optional[str], only: Optional[str], progress: bool) -> None:
+    from .engines import make_engine
+    from .recipe import load_recipe
+    from .runner import OutputLock, Runner
+
+    try:
+        r = load_recipe(recipe)
+        prog, stage = _progress_factory(progress and err.is_terminal)
+        with OutputLock(out_dir), make_engine(engine, workers, scheduler) as eng, prog:
+            result = Runner(r, out_dir, eng, stage).run(until=until, only=only)
+    except CorpusError as exc:
+        _fail(exc)
+    _summary(result)
+    if result.manifest:
+        _where(result)
+
+
+@app.command()
+def run(recipe: Path = typer.Argument(..., help="the recipe TOML file"),
+        out_dir: Path = typer.Option(None, "--out", help="output folder (default: OUT next to the recipe)"),
+        engine: str = typer.Option("local", help="local or dask"),
+        scheduler: Optional[str] = typer.Option(None, help="address of a Dask scheduler"),
+        workers: Optional[int] = typer.Option(None, help="worker processes (default: the machine's cores)"),
+        until: Optional[str] = typer.Option(None, help="stop after this stage"),
+        only: Optional[str] = typer.Option(None, help="run only this stage (its inputs must be cached)"),
+        progress: bool = typer.Option(True, help="show progress bars")) -> None:
+    """Run every stage of RECIPE, reusing what is cached and still valid."""
+    _run(recipe, out_dir or recipe.parent / "OUT", engine, workers, scheduler, until, only, progress)
+
+
+@app.command()
+def demo(out_dir: Path = typer.Option(Path("demo-output"), "--out", help="output folder"),
+         progress: bool = typer.Option(True, help="show progress bars")) -> None:
+    """Run the bundled demo recipe (an invented language and sources)."""
+    recipe = _demo_recipe()
+    out.print(f"Demo recipe: {recipe}", highlight=False)
+    _run(recipe, out_dir, "local", None, None, None, None, progress)
+
+
+def _demo_recipe() -> Path:
+    here = Path(__file__).resolve().parent.parent / "recipes" / "demo.toml"
+    if here.exists():
+        return here
+    raise typer.BadParameter("the demo recipe is missing from this installation; run from a checkout.")
+
+
+@app.command()
+def check(recipe: Path = typer.Argument(..., help="the recipe TOML file")) -> None:
+    """Validate RECIPE and its sources without running."""
+    from .reports.datasheet import load_answers, unanswered
+    from .recipe import load_recipe
+    from .runner import Runner
+
+    try:
+        r = load_recipe(recipe)
+        files = {s.id: len(r.source_files(s)) for s in r.sources}
+        Runner(r, Path("/nonexistent"), None).ingest_units()
+        for name, stage in __import__("corpuskit.stages.registry", fromlist=["STAGES"]).STAGES.items():
+            if hasattr(stage, "context_key"):
+                stage.context_key(r, r.stages[name])
+        open_q = unanswered(load_answers(r))
+    except CorpusError as exc:
+        _fail(exc)
+    out.print(f"{recipe}: valid; {len(r.sources)} sources, "
+              + ", ".join(f"{k} ({v} files)" for k, v in files.items()), highlight=False)
+    if open_q:
+        out.print(f"Datasheet questions not answered yet ({len(open_q)}): " + ", ".join(open_q), highlight=False)
+
+
+@app.command()
+def status(recipe: Path = typer.Argument(..., help="the recipe TOML file"),
+           out_dir: Path = typer.Option(None, "--out", help="output folder")) -> None:
+    """Show which stages are fresh or stale, and why."""
+    from .recipe import load_recipe
+    from .status import stage_status
+
+    try:
+        rows = stage_status(load_recipe(recipe), out_dir or recipe.parent / "OUT")
+    except CorpusError as exc:
+        _fail(exc)
+    t = Table(title="Stage status", title_justify="left")
+    for col in ("stage", "state", "why"):
+        t.add_column(col)
+    for name, state, why in rows:
+        t.add_row(name, state, why)
+    out.print(t)
+
+
+@app.command()
+def trace(doc_id: str = typer.Argument(..., help="a document id"),
+          out_dir: Path = typer.Option(..., "--out", help="output folder of a finished run")) -> None:
+    """Follow one document through every stage and print its fate."""
+    from .trace import trace_document
+
+    try:
+        lines = trace_document(out_dir, doc_id)
+    except CorpusError as exc:
+        _fail(exc)
+    for line in lines:
+        out.print(line, highlight=False)
+
+
+@app.command()
+def new(folder: Path = typer.Argument(..., help="folder for the new language project"),
+        language: str = typer.Option("qaa", help="BCP 47 tag of the language"),
+        name: str = typer.Option("my-corpus", help="a short name for the corpus")) -> None:
+    """Start a language project: a commented recipe, folders for sources and seeds, datasheet answers."""
+    from .project import new_project
+    try:
+        made = new_project(folder, language, name)
+    except CorpusError as exc:
+        _fail(exc)
+    for p in made:
+        out.print(f"created {p}", highlight=False)
+    out.print(f"Next: put your files under {folder / 'sources'}, edit {folder / 'recipe.toml'}, then run "
+              f"'corpuskit check {folder / 'recipe.toml'}'.", highlight=False)
+
+
+langid_app = typer.Typer(help="Language identification between runs.", no_args_is_help=True)
+app.add_typer(langid_app, name="langid")
+
+
+@langid_app.command("evaluate")
+def langid_evaluate(recipe: Path = typer.Argument(...),
+                    out_dir: Path = typer.Option(None, "--out")) -> None:
+    """Train the classifier from the seeds and print its cross-validated figures."""
+    from .recipe import load_recipe
+    from .stages import langid
+    from .storage import Cache
+
+    try:
+        r = load_recipe(recipe)
+        params = r.stages["langid"]
+        cache = Cache(out_dir or recipe.parent / "OUT")
+        key = langid.context_key(r, params)
+        ctx = langid.build_context(r, params, cache, key)
+        report = cache.get_json("langid", ctx["report"])
+    except CorpusError as exc:
+        _fail(exc)
+    out.print(f"accuracy {report.get('accuracy', 0):.4f}, macro-F1 {report.get('macro_f1', 0):.4f}, "
+              f"threshold {report['threshold']}", highlight=False)
+    for lab, v in sorted(report.get("per_class", {}).items()):
+        out.print(f"  {lab:<16} P {v['precision']:.3f}  R {v['recall']:.3f}  F1 {v['f1']:.3f}  n {v['support']}", highlight=False)
+
+
+variants_app = typer.Typer(help="Spelling variants: propose candidates, accept a reviewed sheet.", no_args_is_help=True)
+app.add_typer(variants_app, name="variants")
+
+
+@variants_app.command("propose")
+def variants_propose(recipe: Path = typer.Argument(...), out_dir: Path = typer.Option(None, "--out"),
+                     sheet: Path = typer.Option(Path("variant-review.csv"), help="review sheet to write"),
+                     top: int = typer.Option(200, help="candidates to propose")) -> None:
+    """Propose ranked variant candidates from the corpus into a review sheet."""
+    from .discovery import propose_from_run
+    from .recipe import load_recipe
+
+    try:
+        n = propose_from_run(load_recipe(recipe), out_dir or recipe.parent / "OUT", sheet, top)
+    except CorpusError as exc:
+        _fail(exc)
+    out.print(f"wrote {n} candidates to {sheet}; mark each row accept or reject, then run 'corpuskit variants accept'.",
+              highlight=False)
+
+
+@variants_app.command("accept")
+def variants_accept(sheet: Path = typer.Argument(..., help="the reviewed sheet"),
+                    table: Path = typer.Option(..., help="variant table to update"),
+                    rejected: Path = typer.Option(None, help="file remembering rejected pairs")) -> None:
+    """Read a reviewed sheet back: accepted pairs into the table, rejected pairs remembered."""
+    from .discovery import accept_sheet
+    try:
+        added, refused = accept_sheet(sheet, table, rejected or table.with_suffix(".rejected.tsv"))
+    except CorpusError as exc:
+        _fail(exc)
+    out.print(f"{added} pairs added to {table}; {refused} rejected pairs remembered.", highlight=False)
+
+
+def main() -> None:
+    try:
+        app()
+    except KeyboardInterrupt:  # pragma: no cover
+        err.print("interrupted; finished partitions are kept and the next run resumes.")
+        sys.exit(130)
+
+
+_unused = (gzip, json, shutil)

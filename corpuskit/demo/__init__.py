@@ -1,0 +1,1 @@
+"""The invented demo scenario (language, places, dialects, sources, people) and its generator."""

@@ -1,0 +1,67 @@
+"""The Dask engine: the same task functions on a ``dask.distributed`` cluster.
+
+With no scheduler address a local cluster of N worker processes is started
+and closed with the run.  Tasks read and write the shared cache folder, so
+workers must see the output folder (one machine, or a shared filesystem).
+"""
+from __future__ import annotations
+
+from typing import Any, Callable, Iterator, Sequence
+
+__all__ = ["DaskEngine"]
+
+
+class DaskEngine:
+    name = "dask"
+
+    def __init__(self, workers: int | None = None, scheduler: str | None = None):
+        try:
+            from distributed import Client, LocalCluster
+        except ImportError:  # pragma: no cover - the extra is part of `make` set-up
+            from ..errors import RecipeError
+            raise RecipeError("--engine dask needs the 'dask' extra; install with pip install 'corpuskit[dask]'.") from None
+        self.workers = workers or 2
+        self._cluster = None
+        if scheduler:
+            self.client = Client(scheduler)
+        else:
+            self._cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
+                                         dashboard_address=":0", silence_logs=40)
+            self.client = Client(self._cluster)
+
+    def __enter__(self) -> "DaskEngine":
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        self.close()
+
+    def close(self) -> None:
+        self.client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+
+    def imap(self, func: Callable, args: Sequence[tuple]) -> Iterator[tuple[int, Any]]:
+        from distributed import as_completed
+
+        futures = [self.client.submit(func, *a, pure=False) for a in args]
+        index = {f.key: i for i, f in enumerate(futures)}
+        for fut in as_completed(futures):
+            yield index[fut.key], fut.result()
+
+    def frame_groups(self, rows, key_columns: list[str], value_column: str):
+        """Shuffle rows by key on the cluster and return groups with more than one member.
+
+        Used by near-duplicate detection: band hashes meet on one worker.
+        """
+        import dask.dataframe as dd
+
+        ddf = dd.from_pandas(rows, npartitions=max(1, self.workers))
+        shuffled = ddf.shuffle(on=key_columns)
+
+        def groups(part):
+            g = part.groupby(key_columns, sort=True)[value_column].agg(list)
+            g = g[g.map(len) > 1]
+            return g.reset_index()
+
+        meta = {**{k: rows[k].dtype for k in key_columns}, value_column: "object"}
+        return shuffled.map_partitions(groups, meta=meta).compute(scheduler=self.client)

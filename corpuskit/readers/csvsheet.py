@@ -1,0 +1,70 @@
+"""CSV / TSV sheets: one document per row, columns mapped in the recipe."""
+from __future__ import annotations
+
+import csv
+from dataclasses import dataclass
+from typing import Iterator
+
+from ..ledger import LedgerRow
+from ..recipe import param
+from ._decode import TextFile
+
+csv.field_size_limit(64 << 20)
+
+
+@dataclass(frozen=True)
+class Options:
+    text_column: str = param("text", help="the column holding the text")
+    id_column: str = param("", help="a column with a stable row id")
+    dialect_column: str = param("", help="a column naming the row's dialect")
+    contributor_column: str = param("", help="a column naming the (pseudonymous) contributor")
+    date_column: str = param("", help="a column with the row's date")
+    delimiter: str = param(",", help="the field separator; use '\\t' for TSV")
+
+
+def read(tf: TextFile, opts: Options) -> Iterator[dict]:
+    lines = list(tf.lines())
+    if not lines:
+        return
+    delim = "\t" if opts.delimiter in ("\\t", "tab") else opts.delimiter
+    header_n, header_line = lines[0]
+    header = next(csv.reader([header_line], delimiter=delim))
+    if opts.text_column not in header:
+        from ..errors import DataError
+        raise DataError(f"{tf.rel} line {header_n}: no column '{opts.text_column}' in the header "
+                        f"({', '.join(header)}); set options.text_column in the recipe.")
+    col = {name: i for i, name in enumerate(header)}
+    i = 1
+    while i < len(lines):
+        n, line = lines[i]
+        i += 1
+        if not line.strip():
+            continue
+        record_text, first = line, n
+        # A quoted field may span lines; take lines until the quotes balance (bounded).
+        while record_text.count('"') % 2 and i < len(lines) and i - first < 50:
+            record_text += "\n" + lines[i][1]
+            i += 1
+        try:
+            row = next(csv.reader([record_text], delimiter=delim, strict=True))
+        except csv.Error as exc:
+            tf.issues.append(LedgerRow("ingest", "segment", "removed", f"{tf.file_id}:{first}", first, 1,
+                                       "malformed-csv", f"{tf.rel} line {first}: {exc}; row skipped", None,
+                                       record_text[:500]))
+            continue
+        if len(row) != len(header):
+            tf.issues.append(LedgerRow("ingest", "segment", "removed", f"{tf.file_id}:{first}", first, 1,
+                                       "malformed-csv", f"{tf.rel} line {first}: {len(row)} fields, header has {len(header)}; row skipped",
+                                       None, record_text[:500]))
+            continue
+        get = lambda name: row[col[name]].strip() if name and name in col else ""  # noqa: E731
+        text = get(opts.text_column)
+        if not text:
+            continue
+        doc = {"key": get(opts.id_column) or f"{first}", "segments": [t for t in text.split("\n") if t.strip()],
+               "meta": {"file": tf.rel, "lines": [first]}}
+        for field_name, column in (("dialect", opts.dialect_column), ("contributor", opts.contributor_column),
+                                   ("date", opts.date_column)):
+            if get(column):
+                doc[field_name] = get(column)
+        yield doc

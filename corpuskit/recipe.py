@@ -1,0 +1,290 @@
+"""Load and validate a recipe (one TOML file).
+
+Every table becomes a frozen dataclass.  Unknown keys are an error with a
+did-you-mean suggestion; missing or mistyped values give one sentence naming
+the file, the key and the fix.  Paths are relative to the recipe's folder and
+may not leave it unless ``[corpus] allow_outside_paths = true``.
+"""
+from __future__ import annotations
+
+import dataclasses
+import difflib
+import glob
+import hashlib
+import os
+import tomllib
+import types
+import typing
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import RecipeError
+
+__all__ = ["Recipe", "CorpusSpec", "SourceSpec", "load_recipe", "build", "MEDIA", "CONSENT_SCOPES"]
+
+MEDIA = ("speech-transcript", "print-ocr", "typed-message", "web", "elicited", "seed", "other")
+
+# Consent scopes and whether each allows publishing the text.
+CONSENT_SCOPES = {
+    "redistribution": True,        # contributors agreed to public release
+    "research-only": False,        # use in research, no redistribution of the text
+    "community-only": False,       # stays with the community that holds it
+}
+
+
+def param(default: Any = dataclasses.MISSING, *, help: str = "", low: float | None = None,
+          high: float | None = None, choices: tuple[str, ...] | None = None, **kw: Any) -> Any:
+    """A dataclass field with the metadata the validator reads."""
+    meta = {"help": help, "low": low, "high": high, "choices": choices}
+    if isinstance(default, (list, dict)):
+        value = default
+        return field(default_factory=lambda: type(value)(value), metadata=meta, **kw)
+    return field(default=default, metadata=meta, **kw)
+
+
+@dataclass(frozen=True)
+class CorpusSpec:
+    name: str = param(help="a short name for the corpus")
+    language: str = param(help="the target language as a BCP 47 tag, e.g. qxk")
+    target_script: str = param("Latn", help="ISO 15924 code of the script the corpus is written in")
+    letters: str = param("", help="the orthography's letters, used by the tokenizer")
+    apostrophe: str = param("keep", choices=("keep", "modifier", "ascii"),
+                            help="how apostrophe-like letters are written")
+    answers: str = param("", help="datasheet answers file, relative to the recipe")
+    allow_outside_paths: bool = param(False, help="let source paths leave the recipe's folder")
+    max_files_per_source: int = param(20000, low=1, help="refuse globs matching more files")
+    partition_docs: int = param(2000, low=1, help="documents per partition")
+    shard_docs: int = param(5000, low=1, help="documents per output shard")
+
+
+@dataclass(frozen=True)
+class SourceSpec:
+    id: str = param(help="a short unique name for the source")
+    path: str = param(help="a file or glob relative to the recipe")
+    format: str = param(help="the reader to use")
+    medium: str = param(choices=MEDIA, help="how the text came to be")
+    licence: str = param(help="an SPDX licence expression or LicenseRef-...")
+    consent: str = param(choices=tuple(CONSENT_SCOPES), help="the scope contributors agreed to")
+    dialect: str = param("", help="the dialect, if the whole source is one")
+    script: str = param("", help="ISO 15924 code if the whole source uses one script")
+    contributor: str = param("", help="pseudonymous contributor or team")
+    date: str = param("", help="date or year of the material")
+    encoding: str = param("utf-8", help="text encoding, or 'detect'")
+    priority: int = param(0, help="higher wins when duplicates are resolved")
+    transliterate: str = param("", help="transliteration table applied to this source")
+    options: dict = param({}, help="reader options")
+
+    @property
+    def redistributable(self) -> bool:
+        return CONSENT_SCOPES.get(self.consent, False) and not self.licence.startswith("LicenseRef-restricted")
+
+
+@dataclass(frozen=True)
+class Recipe:
+    path: Path
+    sha256: str
+    corpus: CorpusSpec
+    sources: tuple[SourceSpec, ...]
+    stages: dict[str, Any]
+
+    @property
+    def folder(self) -> Path:
+        return self.path.parent
+
+    def resolve(self, value: str, key: str) -> Path:
+        """A path named in the recipe, relative to its folder, checked not to escape it."""
+        return resolve_inside(self.folder, value, key, self.path, self.corpus.allow_outside_paths)
+
+    def source_files(self, source: SourceSpec) -> list[Path]:
+        pattern = str(self.folder / source.path)
+        where = f"[[sources]] id = '{source.id}', key 'path'"
+        if not self.corpus.allow_outside_paths:
+            resolve_inside(self.folder, source.path.split("*")[0] or ".", where, self.path, False)
+        matches: list[Path] = []
+        for i, name in enumerate(glob.iglob(pattern, recursive=True)):
+            if i >= self.corpus.max_files_per_source:
+                raise RecipeError(
+                    f"{self.path}: {where} matches more than {self.corpus.max_files_per_source} files; "
+                    "narrow the glob or raise [corpus] max_files_per_source.")
+            p = Path(name)
+            if p.is_dir():
+                continue
+            if not self.corpus.allow_outside_paths:
+                resolve_inside(self.folder, os.path.relpath(name, self.folder), where, self.path, False)
+            matches.append(p)
+        if not matches:
+            raise RecipeError(f"{self.path}: {where} = '{source.path}' matches no file; "
+                              "check the path, which is relative to the recipe's folder.")
+        return sorted(matches, key=lambda p: str(p))
+
+    def stage(self, name: str) -> Any:
+        return self.stages[name]
+
+
+def resolve_inside(folder: Path, value: str, key: str, recipe_path: Path, allowed: bool) -> Path:
+    path = (folder / value)
+    try:
+        real = Path(os.path.realpath(path))
+    except (OSError, RuntimeError) as exc:  # symlink loops on some systems
+        raise RecipeError(f"{recipe_path}: {key} = '{value}' cannot be resolved ({exc}); "
+                          "remove the symlink loop.") from None
+    root = Path(os.path.realpath(folder))
+    if not allowed and real != root and root not in real.parents:
+        raise RecipeError(
+            f"{recipe_path}: {key} = '{value}' leads outside the recipe's folder ({root}); "
+            "move the files under that folder or set [corpus] allow_outside_paths = true.")
+    return path
+
+
+# -- validation -------------------------------------------------------------------------
+
+def _suggest(key: str, known: typing.Iterable[str]) -> str:
+    close = difflib.get_close_matches(key, list(known), n=1, cutoff=0.6)
+    return f"; did you mean '{close[0]}'?" if close else f"; known keys: {', '.join(sorted(known))}."
+
+
+def _type_name(tp: Any) -> str:
+    return {str: "a string", int: "an integer", float: "a number", bool: "true or false",
+            list: "a list", dict: "a table"}.get(tp, str(tp))
+
+
+def _check_value(value: Any, tp: Any, meta: dict, where: str) -> Any:
+    origin = typing.get_origin(tp)
+    if origin in (typing.Union, types.UnionType):
+        args = [a for a in typing.get_args(tp) if a is not type(None)]
+        tp, origin = args[0], typing.get_origin(args[0])
+    base = origin or tp
+    if base is float and isinstance(value, int) and not isinstance(value, bool):
+        value = float(value)
+    ok = isinstance(value, base) and not (base in (int, float) and isinstance(value, bool))
+    if not ok:
+        raise RecipeError(f"{where} must be {_type_name(base)}, got {value!r}; {meta.get('help') or 'fix the value'}.")
+    if base is list:
+        (item_tp,) = typing.get_args(tp) or (Any,)
+        if item_tp in (str, int, float) and not all(isinstance(v, item_tp) for v in value):
+            raise RecipeError(f"{where} must be a list of {_type_name(item_tp)}s, got {value!r}.")
+        value = tuple(value)
+    low, high, choices = meta.get("low"), meta.get("high"), meta.get("choices")
+    if low is not None and value < low or high is not None and value > high:
+        raise RecipeError(f"{where} = {value!r} is out of range; use a value between {low} and {high}.")
+    if choices and value not in choices:
+        raise RecipeError(f"{where} = {value!r} is not allowed{_suggest(str(value), choices)[:-1] if difflib.get_close_matches(str(value), choices, n=1) else ''}; "
+                          f"use one of: {', '.join(choices)}.")
+    return value
+
+
+def build(cls: type, table: Any, where: str, file: Path | str) -> Any:
+    """Build the frozen dataclass ``cls`` from a TOML table, with clear errors."""
+    if not isinstance(table, dict):
+        raise RecipeError(f"{file}: {where} must be a table, got {table!r}.")
+    fields = {f.name: f for f in dataclasses.fields(cls) if f.init}
+    hints = typing.get_type_hints(cls)
+    for key in table:
+        if key not in fields:
+            raise RecipeError(f"{file}: {where} has unknown key '{key}'{_suggest(key, fields)}")
+    values = {}
+    for name, f in fields.items():
+        if name in table:
+            values[name] = _check_value(table[name], hints[name], dict(f.metadata), f"{file}: {where} key '{name}'")
+        elif f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING:  # type: ignore[misc]
+            raise RecipeError(f"{file}: {where} is missing key '{name}'; add {name} = ... ({f.metadata.get('help', '')}).")
+    try:
+        return cls(**values)
+    except ValueError as exc:
+        raise RecipeError(f"{file}: {where}: {exc}") from None
+
+
+def load_recipe(path: str | os.PathLike) -> Recipe:
+    from .stages.registry import STAGES  # the stages declare their own parameter tables
+
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise RecipeError(f"{path}: no such recipe file; check the path or start one with 'corpuskit new'.") from None
+    except OSError as exc:
+        raise RecipeError(f"{path}: cannot read the recipe ({exc.strerror}).") from None
+    try:
+        data = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError as exc:
+        raise RecipeError(f"{path}: the recipe is not UTF-8 text (byte {exc.start}); save it as UTF-8.") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise RecipeError(f"{path}: TOML syntax error: {exc}; fix the line named.") from None
+    top = {"corpus", "sources", "stages"}
+    for key in data:
+        if key not in top:
+            raise RecipeError(f"{path}: unknown top-level key '{key}'{_suggest(key, top)}")
+    if "corpus" not in data:
+        raise RecipeError(f"{path}: missing the [corpus] table; add [corpus] with name and language.")
+    corpus = build(CorpusSpec, data["corpus"], "[corpus]", path)
+    _check_language(corpus, path)
+    raw_sources = data.get("sources", [])
+    if not isinstance(raw_sources, list) or not raw_sources:
+        raise RecipeError(f"{path}: no [[sources]] given; add at least one [[sources]] table with id, path and format.")
+    sources = []
+    from .readers import READERS
+    for i, table in enumerate(raw_sources):
+        where = f"[[sources]] #{i + 1}" + (f" (id = '{table.get('id')}')" if isinstance(table, dict) and "id" in table else "")
+        src = build(SourceSpec, table, where, path)
+        if src.format not in READERS:
+            raise RecipeError(f"{path}: {where} key 'format' = '{src.format}' is not a known reader"
+                              f"{_suggest(src.format, READERS)}")
+        _check_licence(src.licence, f"{where} key 'licence'", path)
+        sources.append(src)
+    ids = [s.id for s in sources]
+    dup = {i for i in ids if ids.count(i) > 1}
+    if dup:
+        raise RecipeError(f"{path}: source id '{sorted(dup)[0]}' is used twice; give each [[sources]] a unique id.")
+    stage_tables = data.get("stages", {})
+    if not isinstance(stage_tables, dict):
+        raise RecipeError(f"{path}: [stages] must be a table of stage tables.")
+    for key in stage_tables:
+        if key not in STAGES:
+            raise RecipeError(f"{path}: [stages] has unknown stage '{key}'{_suggest(key, STAGES)}")
+    stages = {name: build(stage.Params, stage_tables.get(name, {}), f"[stages.{name}]", path)
+              for name, stage in STAGES.items()}
+    return Recipe(path=path.resolve(), sha256=hashlib.sha256(raw).hexdigest(), corpus=corpus,
+                  sources=tuple(sources), stages=stages)
+
+
+def _check_language(corpus: CorpusSpec, path: Path) -> None:
+    import langcodes
+
+    if not is_valid_language_tag(corpus.language):
+        raise RecipeError(f"{path}: [corpus] key 'language' = '{corpus.language}' is not a valid BCP 47 tag; "
+                          "use e.g. 'qxk' or 'qxk-Latn' (local-use codes are qaa-qtz).")
+    if not (len(corpus.target_script) == 4 and corpus.target_script.isalpha()):
+        raise RecipeError(f"{path}: [corpus] key 'target_script' = '{corpus.target_script}' is not an ISO 15924 code; "
+                          "use a four-letter code such as 'Latn' or 'Cyrl'.")
+
+
+def is_valid_language_tag(tag: str) -> bool:
+    """BCP 47 validity via langcodes, accepting the local-use range qaa-qtz (RFC 5646 registry).
+
+    langcodes knows the range only by its end points, so a local-use primary
+    subtag is checked as 'qaa' with the rest of the tag unchanged.
+
+    >>> is_valid_language_tag("qnv-x-hill"), is_valid_language_tag("de-419-DE")
+    (True, False)
+    """
+    import langcodes
+
+    first, _, rest = tag.partition("-")
+    if len(first) == 3 and first.isalpha() and "qaa" <= first.lower() <= "qtz":
+        tag = "qaa" + ("-" + rest if rest else "")
+    return langcodes.tag_is_valid(tag)
+
+
+def _check_licence(expression: str, where: str, path: Path) -> None:
+    from license_expression import ExpressionError, get_spdx_licensing
+
+    try:
+        info = get_spdx_licensing().validate(expression)
+    except ExpressionError as exc:  # pragma: no cover - validate() reports instead of raising
+        info = None
+        raise RecipeError(f"{path}: {where} = '{expression}' is not an SPDX expression ({exc}).") from None
+    unknown = [k for k in info.invalid_symbols if not str(k).startswith("LicenseRef-")]
+    if info.errors and not all("Unknown license key" in e for e in info.errors) or unknown:
+        raise RecipeError(f"{path}: {where} = '{expression}' is not a valid SPDX licence expression; "
+                          "use an identifier such as CC-BY-4.0, or LicenseRef-<name> for a community licence.")

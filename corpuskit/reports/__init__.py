@@ -1,0 +1,1 @@
+"""Reports written by the export stage: balance, datasheet, tables."""

@@ -1,0 +1,207 @@
+"""The balance report: how much of each dialect, source, medium, script and contributor.
+
+Streams documents once (``Accumulator.add``), then writes CSV tables and a
+self-contained HTML page with matplotlib plots embedded as PNG data.
+"""
+from __future__ import annotations
+
+import base64
+import html
+import io
+from collections import Counter, defaultdict
+from pathlib import Path
+
+import regex
+
+from ..storage import atomic_write_text
+from .stats import effective_number, heaps_fit, imbalance_ratio, jaccard, shannon_entropy, temperature_weights
+
+WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}ʼ'’-]+")
+AXES = ("dialect", "source", "medium", "script", "contributor")
+
+
+class Accumulator:
+    def __init__(self):
+        self.rows = {a: defaultdict(Counter) for a in AXES}
+        self.types = {a: defaultdict(set) for a in ("dialect", "source", "medium", "script")}
+        self.growth: dict[str, list[tuple[int, int]]] = defaultdict(list)
+        self._next = defaultdict(lambda: 1)
+
+    def add(self, doc: dict) -> None:
+        words = [w.casefold() for s in doc["segments"] for w in WORD.findall(s)]
+        chars = sum(len(s) for s in doc["segments"])
+        for a in AXES:
+            key = doc.get(a) or "unknown"
+            c = self.rows[a][key]
+            c["documents"] += 1
+            c["segments"] += len(doc["segments"])
+            c["words"] += len(words)
+            c["characters"] += chars
+            if a in self.types:
+                self.types[a][key].update(words)
+        d = doc.get("dialect") or "unknown"
+        tokens = self.rows["dialect"][d]["words"]
+        if tokens >= self._next[d]:
+            self.growth[d].append((tokens, len(self.types["dialect"][d])))
+            self._next[d] = int(tokens * 1.25) + 1
+
+    def table(self, axis: str) -> list[dict]:
+        total = {k: sum(c[k] for c in self.rows[axis].values()) for k in ("documents", "segments", "words", "characters")}
+        out = []
+        for key in sorted(self.rows[axis]):
+            c = self.rows[axis][key]
+            row = {axis: key, **{k: c[k] for k in ("documents", "segments", "words", "characters")}}
+            if axis in self.types:
+                row["types"] = len(self.types[axis][key])
+            for k in ("documents", "words"):
+                row[f"{k}_share"] = round(c[k] / total[k], 4) if total[k] else 0.0
+            out.append(row)
+        return out
+
+
+class ScriptInventory:
+    """Characters by script per source and dialect, with example contexts for unexpected ones."""
+
+    def __init__(self):
+        self.chars = Counter()
+        self.examples: dict[tuple, str] = {}
+
+    def add(self, doc: dict) -> None:
+        from ..stages.script import char_script
+        for seg in doc["segments"]:
+            for i, ch in enumerate(seg):
+                if ch.isspace():
+                    continue
+                key = (doc["source"], doc.get("dialect") or "unknown", char_script(ch), ch)
+                self.chars[key] += 1
+                if key not in self.examples:
+                    self.examples[key] = seg[max(0, i - 15):i + 15]
+
+    def csv(self) -> str:
+        import csv as _csv
+        import unicodedata
+        buf = io.StringIO()
+        w = _csv.writer(buf, lineterminator="\n")
+        w.writerow(["source", "dialect", "script", "character", "code_point", "name", "count", "example"])
+        for key in sorted(self.chars):
+            src, dia, sc, ch = key
+            w.writerow([src, dia, sc, ch, f"U+{ord(ch):04X}", unicodedata.name(ch, ""), self.chars[key], self.examples[key]])
+        return buf.getvalue()
+
+
+def _png(fig) -> str:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=90, metadata={"Software": None}, bbox_inches="tight")
+    import matplotlib.pyplot as plt
+    plt.close(fig)
+    return base64.b64encode(buf.getvalue()).decode()
+
+
+def _plots(acc: Accumulator, overlap: dict) -> list[tuple[str, str]]:
+    import matplotlib
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    plt.rcParams["svg.hashsalt"] = "corpuskit"
+    out = []
+    for axis in ("dialect", "source", "medium"):
+        rows = acc.table(axis)
+        fig, ax = plt.subplots(figsize=(6.5, 0.4 * len(rows) + 1.2))
+        ax.barh([r[axis] for r in rows], [r["words"] for r in rows], color="#4477aa")
+        ax.set_xlabel("words")
+        ax.set_title(f"Words per {axis}")
+        ax.invert_yaxis()
+        out.append((f"Words per {axis}", _png(fig)))
+    fig, ax = plt.subplots(figsize=(6.5, 4))
+    for d, pts in sorted(acc.growth.items()):
+        if pts:
+            ax.plot([t for t, _ in pts], [v for _, v in pts], marker=".", label=d)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("tokens")
+    ax.set_ylabel("types")
+    ax.set_title("Type-token growth per dialect")
+    ax.legend()
+    out.append(("Type-token growth per dialect (log-log)", _png(fig)))
+    names = sorted(overlap)
+    if names:
+        fig, ax = plt.subplots(figsize=(4.5, 4))
+        m = [[overlap[a][b] for b in names] for a in names]
+        im = ax.imshow(m, vmin=0, vmax=1, cmap="viridis")
+        ax.set_xticks(range(len(names)), names, rotation=45, ha="right")
+        ax.set_yticks(range(len(names)), names)
+        for i in range(len(names)):
+            for j in range(len(names)):
+                ax.text(j, i, f"{m[i][j]:.2f}", ha="center", va="center", color="white" if m[i][j] < 0.6 else "black")
+        fig.colorbar(im)
+        ax.set_title("Vocabulary overlap (Jaccard)")
+        out.append(("Vocabulary overlap between dialects (Jaccard)", _png(fig)))
+    return out
+
+
+def _html_table(rows: list[dict]) -> str:
+    if not rows:
+        return "<p>none</p>"
+    head = "".join(f"<th>{html.escape(str(k))}</th>" for k in rows[0])
+    body = "".join("<tr>" + "".join(f"<td>{html.escape(str(v))}</td>" for v in r.values()) + "</tr>" for r in rows)
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def write_report(folder: Path, acc: Accumulator, params, recipe) -> dict:
+    from ..stages.export import _csv
+    folder.mkdir(parents=True, exist_ok=True)
+    tables = {a: acc.table(a) for a in AXES}
+    for a, rows in tables.items():
+        atomic_write_text(folder / f"balance-{a}.csv", _csv(rows))
+    measures = {}
+    for a in ("dialect", "source"):
+        words = [r["words"] for r in tables[a]]
+        measures[a] = {"entropy_bits": round(shannon_entropy(words), 4), "effective_number": round(effective_number(words), 4),
+                       "groups": len(words), "imbalance_ratio": round(imbalance_ratio(words), 4)}
+    heaps = []
+    for d, pts in sorted(acc.growth.items()):
+        k, beta = heaps_fit(pts)
+        heaps.append({"dialect": d, "K": round(k, 3) if k == k else None, "beta": round(beta, 4) if beta == beta else None,
+                      "tokens": acc.rows["dialect"][d]["words"], "types": len(acc.types["dialect"][d])})
+    vocab = acc.types["dialect"]
+    names = sorted(vocab)
+    overlap = {a: {b: round(jaccard(vocab[a], vocab[b]), 4) for b in names} for a in names}
+    oov = []
+    for a in names:
+        rest = set().union(*(vocab[b] for b in names if b != a)) if len(names) > 1 else set()
+        oov.append({"dialect": a, "types": len(vocab[a]),
+                    "oov_rate_against_rest": round(len(vocab[a] - rest) / len(vocab[a]), 4) if vocab[a] else 0.0})
+    sizes = {r["dialect"]: r["words"] for r in tables["dialect"]}
+    q = temperature_weights(sizes, params.alpha)
+    total = sum(sizes.values())
+    sampling = [{"dialect": d, "words": sizes[d], "natural_share": round(sizes[d] / total, 4) if total else 0,
+                 "sampling_share": round(q[d], 4), "expected_words": round(q[d] * total),
+                 "weight_per_word": round(q[d] / (sizes[d] / total), 4) if sizes[d] else 0} for d in sorted(sizes)]
+    warnings = [f"dialect '{r['dialect']}' has {r['words_share']:.1%} of the words, under the floor {params.dialect_floor:.0%}"
+                for r in tables["dialect"] if r["words_share"] < params.dialect_floor]
+    warnings += [f"medium '{r['medium']}' has {r['words_share']:.1%} of the words, under the floor {params.medium_floor:.0%}"
+                 for r in tables["medium"] if r["words_share"] < params.medium_floor]
+    atomic_write_text(folder / "balance-heaps.csv", _csv(heaps))
+    atomic_write_text(folder / "balance-overlap.csv", _csv([{"dialect": a, **overlap[a]} for a in names]))
+    atomic_write_text(folder / "balance-oov.csv", _csv(oov))
+    atomic_write_text(folder / "sampling-weights.csv", _csv(sampling))
+    plots = _plots(acc, overlap)
+    parts = [f"<!doctype html><html lang='en'><head><meta charset='utf-8'><title>Balance: {html.escape(recipe.corpus.name)}</title>",
+             "<style>body{font-family:sans-serif;max-width:960px;margin:2em auto;color:#222}table{border-collapse:collapse;margin:1em 0}"
+             "td,th{border:1px solid #ccc;padding:3px 8px;text-align:right}th{background:#eee}td:first-child{text-align:left}"
+             ".warn{background:#fff3cd;border:1px solid #e0c36b;padding:.5em 1em}img{max-width:100%}</style></head><body>",
+             f"<h1>Balance of the corpus “{html.escape(recipe.corpus.name)}” ({html.escape(recipe.corpus.language)})</h1>"]
+    if warnings:
+        parts.append("<div class='warn'><strong>Warnings</strong><ul>" + "".join(f"<li>{html.escape(w)}</li>" for w in warnings) + "</ul></div>")
+    parts.append("<h2>Diversity</h2>" + _html_table([{"over": a, **m} for a, m in measures.items()]))
+    parts.append("<p>Entropy in bits over the share of words; effective number = 2<sup>H</sup>; "
+                 "imbalance ratio = largest / smallest group.</p>")
+    for a in AXES:
+        parts.append(f"<h2>By {a}</h2>" + _html_table(tables[a]))
+    parts.append("<h2>Heaps' law per dialect (V = K·T<sup>β</sup>)</h2>" + _html_table(heaps))
+    parts.append("<h2>Out-of-vocabulary rate of each dialect against the others</h2>" + _html_table(oov))
+    parts.append(f"<h2>Temperature sampling across dialects (α = {params.alpha})</h2>" + _html_table(sampling))
+    for title, data in plots:
+        parts.append(f"<h2>{html.escape(title)}</h2><img alt='{html.escape(title)}' src='data:image/png;base64,{data}'>")
+    parts.append("</body></html>\n")
+    atomic_write_text(folder / "balance.html", "\n".join(parts))
+    return {"measures": measures, "tables": tables, "heaps": heaps, "oov": oov, "sampling": sampling, "warnings": warnings}

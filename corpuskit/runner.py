@@ -1,0 +1,313 @@
+"""The stage graph: planning, caching, resumption and the closing counts.
+
+Every partition artefact is keyed by the hash of its input partition key, the
+stage's parameters and version, and the content of any tables or models it
+reads.  A run computes only the keys that are not in the cache, so a second
+run executes nothing, adding a source computes only its partitions (plus the
+stages that must see everything), and a killed run resumes where it stopped.
+"""
+from __future__ import annotations
+
+import dataclasses
+import fcntl
+import json
+import os
+import platform
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from .errors import DataError, LockedError, RecipeError
+from .ledger import Counts, count_partition
+from .recipe import Recipe, SourceSpec
+from .stages.registry import GLOBAL_STAGES, MAP_STAGES, STAGE_ORDER, STAGES
+from .storage import Cache, file_sha256, stable_hash
+
+__all__ = ["Runner", "RunResult", "Partition", "run_map_task", "OutputLock"]
+
+
+@dataclass(frozen=True)
+class Partition:
+    source: str
+    key: str
+
+
+@dataclass
+class StageReport:
+    name: str
+    counts: Counts = field(default_factory=Counts)
+    computed: int = 0          # partitions computed in this run
+    reused: int = 0            # partitions taken from the cache
+    seconds: float = 0.0
+
+
+@dataclass
+class RunResult:
+    out: Path
+    stages: list[StageReport]
+    conservation: dict[str, Any] | None = None
+    manifest: dict[str, Any] | None = None
+    warnings: list[str] = field(default_factory=list)
+
+    def stage(self, name: str) -> StageReport:
+        return next(s for s in self.stages if s.name == name)
+
+    @property
+    def executed(self) -> dict[str, int]:
+        return {s.name: s.computed for s in self.stages}
+
+
+class OutputLock:
+    """An exclusive lock on the output folder; the kernel drops it if the holder dies."""
+
+    def __init__(self, out: Path):
+        self.path = Path(out) / ".lock"
+        self._fd: int | None = None
+
+    def __enter__(self) -> "OutputLock":
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        self._fd = os.open(self.path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(self._fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            os.close(self._fd)
+            self._fd = None
+            raise LockedError(f"{self.path.parent}: another corpuskit run is using this output folder; "
+                              "wait for it to finish or choose another --out.") from None
+        os.ftruncate(self._fd, 0)
+        os.write(self._fd, str(os.getpid()).encode())
+        return self
+
+    def __exit__(self, *exc: Any) -> None:
+        if self._fd is not None:
+            fcntl.flock(self._fd, fcntl.LOCK_UN)
+            os.close(self._fd)
+
+
+# -- tasks (top-level so that worker processes can run them) ---------------------------
+
+def run_ingest_task(cache_root: str, source: SourceSpec, files: list[tuple[str, str]], unit_key: str,
+                    partition_docs: int) -> dict:
+    from .stages import ingest
+    cache = Cache(Path(cache_root).parent)
+    parts, warnings = ingest.ingest_unit(source, files, partition_docs)
+    keys = []
+    total = Counts()
+    for i, (docs, rows) in enumerate(parts):
+        key = f"{unit_key}-{i:04d}"
+        counts = ingest.counts(docs, rows)
+        cache.write_partition("ingest", key, docs, rows, {"counts": counts.as_dict()})
+        keys.append(key)
+        total = total.add(counts)
+    marker = {"parts": keys, "counts": total.as_dict(), "warnings": warnings}
+    cache.put_json("ingest", f"{unit_key}.unit.json", marker)
+    return marker
+
+
+def run_map_task(cache_root: str, stage_name: str, params: Any, ctx: Any, in_stage: str, in_key: str,
+                 out_key: str) -> dict:
+    stage = STAGES[stage_name]
+    cache = Cache(Path(cache_root).parent)
+    docs = cache.read_docs(in_stage, in_key)
+    n_in = len(docs)
+    segs_in = sum(len(d["segments"]) for d in docs)
+    started = time.perf_counter()
+    out, rows = stage.apply(docs, params, ctx)
+    counts = count_partition([], out, rows)
+    counts.docs_in, counts.segs_in = n_in, segs_in
+    _check_partition(stage_name, in_key, n_in, segs_in, out, rows)
+    cache.write_partition(stage_name, out_key, out, rows, {"counts": counts.as_dict(), "docs": n_in,
+                                                          "seconds": time.perf_counter() - started})
+    return {"counts": counts.as_dict()}
+
+
+def _check_partition(stage_name: str, key: str, n_in: int, segs_in: int, docs_out: list, rows: list) -> None:
+    """A stage may not lose a document or segment without a ledger row."""
+    removed_docs = [r for r in rows if r.unit == "document" and r.action == "removed"]
+    removed_segs = sum(1 for r in rows if r.unit == "segment" and r.action == "removed")
+    segs_out = sum(len(d["segments"]) for d in docs_out)
+    if n_in != len(docs_out) + len(removed_docs) or \
+            segs_in != segs_out + removed_segs + sum(r.segments for r in removed_docs):
+        raise DataError(f"stage '{stage_name}' lost units without a ledger row in partition {key} "
+                        f"(documents {n_in} -> {len(docs_out)} + {len(removed_docs)} removed; "
+                        f"segments {segs_in} -> {segs_out} + {removed_segs} removed); this is a bug, please report it.")
+
+
+# -- the runner ----------------------------------------------------------------------------
+
+class Runner:
+    def __init__(self, recipe: Recipe, out: Path, engine, progress: Callable | None = None):
+        self.recipe = recipe
+        self.out = Path(out)
+        self.cache = Cache(self.out)
+        self.engine = engine
+        self.progress = progress or (lambda *a, **k: None)
+        self.warnings: list[str] = []
+        self.last_keys: dict[str, list[str]] = {}
+        self.langid_report: str | None = None
+
+    # planning ---------------------------------------------------------------------------
+    def ingest_units(self) -> list[tuple[SourceSpec, list[tuple[str, str]], str]]:
+        """(source, [(path, path relative to the recipe)], unit key) in a stable order."""
+        from .readers import READERS
+        from .stages import ingest
+
+        units = []
+        for source in self.recipe.sources:
+            files = self.recipe.source_files(source)
+            groups = ingest.group_files(source, files, self.recipe.folder)
+            reader = READERS[source.format]
+            for group in groups:
+                fingerprints = [(rel, file_sha256(Path(p))) for p, rel in group]
+                key = stable_hash("ingest", ingest.VERSION, getattr(reader, "VERSION", "1"), source, fingerprints,
+                                  self.recipe.corpus.partition_docs)
+                units.append((source, [(str(p), rel) for p, rel in group], key))
+        return units
+
+    # running ------------------------------------------------------------------------------
+    def run(self, until: str | None = None, only: str | None = None) -> RunResult:
+        for name in (until, only):
+            if name and name not in STAGE_ORDER:
+                from .recipe import _suggest
+                raise RecipeError(f"stage '{name}' is not known{_suggest(name, STAGE_ORDER)}")
+        last = until or only or STAGE_ORDER[-1]
+        reports: list[StageReport] = []
+        parts = self._ingest(reports, execute=not only or only == "ingest")
+        stage_in = "ingest"
+        for name in STAGE_ORDER[1:STAGE_ORDER.index(last) + 1]:
+            execute = not only or only == name
+            if name in MAP_STAGES:
+                parts = self._map_stage(name, stage_in, parts, reports, execute)
+            elif name in GLOBAL_STAGES:
+                parts = self._global_stage(name, stage_in, parts, reports, execute)
+            elif name == "export":
+                return self._export(stage_in, parts, reports)
+            stage_in = name
+        return RunResult(self.out, reports, warnings=self.warnings)
+
+    def _require(self, stage: str, key: str) -> None:
+        if not self.cache.done(stage, key):
+            raise RecipeError(f"stage '{stage}' has no cached result for this recipe yet; "
+                              f"run 'corpuskit run RECIPE --until {stage}' first.")
+
+    def _ingest(self, reports: list[StageReport], execute: bool) -> list[Partition]:
+        report = StageReport("ingest")
+        started = time.perf_counter()
+        units = self.ingest_units()
+        todo = [u for u in units if not self.cache.has_blob("ingest", f"{u[2]}.unit.json")]
+        if todo and not execute:
+            raise RecipeError("sources changed since the last run; run 'corpuskit run RECIPE --until ingest' first.")
+        args = [(str(self.cache.root), src, files, key, self.recipe.corpus.partition_docs) for src, files, key in todo]
+        with self.progress("ingest", len(args)) as tick:
+            for _, marker in self.engine.imap(run_ingest_task, args):
+                tick(Counts.from_dict(marker["counts"]).docs_out)
+        parts = []
+        for source, _, key in units:
+            marker = self.cache.get_json("ingest", f"{key}.unit.json")
+            self.warnings.extend(marker.get("warnings", []))
+            report.counts = report.counts.add(Counts.from_dict(marker["counts"]))
+            parts.extend(Partition(source.id, k) for k in marker["parts"])
+        report.computed, report.reused = len(todo), len(units) - len(todo)
+        self.last_keys = {"ingest": [p.key for p in parts]}
+        report.seconds = time.perf_counter() - started
+        reports.append(report)
+        return parts
+
+    def _run_partitions(self, name: str, in_stage: str, jobs: list[tuple[Partition, str, Any]],
+                        report: StageReport, execute: bool) -> list[Partition]:
+        """Compute every (input partition, output key, context) job not yet in the cache."""
+        todo = [(p, k, c) for p, k, c in jobs if not self.cache.done(name, k)]
+        if todo and not execute:
+            self._require(name, todo[0][1])
+        args = [(str(self.cache.root), name, self.recipe.stages[name], ctx, in_stage, p.key, k) for p, k, ctx in todo]
+        with self.progress(name, len(args)) as tick:
+            for i, result in self.engine.imap(run_map_task, args):
+                tick(result["counts"]["docs_in"])
+        for p, k, _ in jobs:
+            report.counts = report.counts.add(Counts.from_dict(self.cache.marker(name, k)["counts"]))
+        report.computed, report.reused = len(todo), len(jobs) - len(todo)
+        self.last_keys[name] = [k for _, k, _ in jobs]
+        return [Partition(p.source, k) for p, k, _ in jobs]
+
+    def _map_stage(self, name: str, in_stage: str, parts: list[Partition], reports: list[StageReport],
+                   execute: bool) -> list[Partition]:
+        stage = STAGES[name]
+        params = self.recipe.stages[name]
+        report = StageReport(name)
+        started = time.perf_counter()
+        ctx_key = stage.context_key(self.recipe, params)
+        if name == "langid":
+            self.langid_report = f"report-{ctx_key}.json"
+        surveys: dict[str, tuple[str, Any]] = {}
+        if hasattr(stage, "survey_partition"):
+            for source in self.recipe.sources:
+                in_keys = [p.key for p in parts if p.source == source.id]
+                skey = stable_hash(name, stage.VERSION, params, ctx_key, in_keys)
+                surveys[source.id] = (skey, None)
+        keys = {p.key: stable_hash(name, stage.VERSION, params, ctx_key,
+                                   surveys.get(p.source, ("", None))[0], p.key) for p in parts}
+        missing = [p for p in parts if not self.cache.done(name, keys[p.key])]
+        ctx = None
+        if missing and execute:
+            ctx = stage.build_context(self.recipe, params, self.cache, ctx_key)
+            for source_id in sorted({p.source for p in missing} & set(surveys)):
+                surveys[source_id] = (surveys[source_id][0],
+                                      self._survey(name, stage, params, in_stage, parts, source_id, surveys[source_id][0]))
+        jobs = [(p, keys[p.key], stage.partition_context(ctx, surveys.get(p.source, ("", None))[1])
+                 if hasattr(stage, "partition_context") else ctx) for p in parts]
+        out = self._run_partitions(name, in_stage, jobs, report, execute)
+        report.seconds = time.perf_counter() - started
+        reports.append(report)
+        return out
+
+    def _survey(self, name, stage, params, in_stage, parts, source_id, skey):
+        blob = f"survey-{skey}.json"
+        if self.cache.has_blob(name, blob):
+            return self.cache.get_json(name, blob)
+        partials = [stage.survey_partition(self.cache.read_docs(in_stage, p.key), params)
+                    for p in parts if p.source == source_id]
+        survey = stage.merge_surveys(partials, params)
+        self.cache.put_json(name, blob, survey)
+        return survey
+
+    def _global_stage(self, name: str, in_stage: str, parts: list[Partition], reports: list[StageReport],
+                      execute: bool) -> list[Partition]:
+        stage = STAGES[name]
+        params = self.recipe.stages[name]
+        report = StageReport(name)
+        started = time.perf_counter()
+        decisions = stage.decide(self, in_stage, parts, params)
+        jobs = [(p, stable_hash(name, stage.VERSION, params, p.key, decisions[p.key]), decisions[p.key]) for p in parts]
+        out = self._run_partitions(name, in_stage, jobs, report, execute)
+        report.seconds = time.perf_counter() - started
+        reports.append(report)
+        return out
+
+    def _export(self, in_stage: str, parts: list[Partition], reports: list[StageReport]) -> RunResult:
+        from .stages import export
+        started = time.perf_counter()
+        result = export.write_outputs(self, in_stage, parts, reports)
+        report = StageReport("export", counts=result.pop("counts"), computed=1)
+        report.seconds = time.perf_counter() - started
+        reports.append(report)
+        res = RunResult(self.out, reports, result["conservation"], result["manifest"], warnings=self.warnings)
+        self._write_log(res)
+        return res
+
+    def _write_log(self, res: RunResult) -> None:
+        lines = [f"corpuskit run of {self.recipe.path.name} on {platform.node()} ({platform.platform()}), "
+                 f"engine {self.engine.name} with {getattr(self.engine, 'workers', 1)} workers"]
+        for s in res.stages:
+            lines.append(f"{s.name}: {s.computed} computed, {s.reused} reused, {s.seconds:.2f} s")
+        lines.extend(f"warning: {w}" for w in self.warnings)
+        with open(self.out / "run.log", "a", encoding="utf-8") as f:
+            f.write(time.strftime("%Y-%m-%dT%H:%M:%S ") + "\n".join(lines) + "\n\n")
+
+
+def stage_params_dict(params: Any) -> dict:
+    return dataclasses.asdict(params) if dataclasses.is_dataclass(params) else dict(params)
+
+
+def describe_params(recipe: Recipe) -> str:
+    return json.dumps({k: stage_params_dict(v) for k, v in recipe.stages.items()}, sort_keys=True, default=str)

@@ -1,0 +1,1 @@
+"""One module per stage; ``registry.STAGES`` lists them in pipeline order."""

@@ -1,0 +1,292 @@
+"""Medium-specific clean-up.
+
+- speech transcripts: non-speech annotations dropped, speaker labels moved to
+  metadata, cue fragments of one speaker joined into utterances;
+- OCR'd booklets: running headers, footers and page numbers found by
+  repetition across pages and dropped; line-end hyphenation rejoined where the
+  joined word is attested in the source; broken lines rejoined into paragraphs;
+- message exports: system lines dropped, forwarded copies kept once;
+- web pages: navigation and lines repeated across pages dropped.
+
+Every removal and join is a ledger row.
+"""
+from __future__ import annotations
+
+import json
+from collections import Counter
+from dataclasses import dataclass
+from typing import Any
+
+import regex
+
+from ..ledger import LedgerRow, remove_document, remove_segment
+from ..recipe import param
+from ._base import drop_empty, no_context, no_context_key
+
+VERSION = "1"
+
+
+@dataclass(frozen=True)
+class Params:
+    annotation_pattern: str = param(r"\[[^\]\n]{1,40}\]|\((?:laughs?|music|inaudible|noise|applause|pause|crosstalk|coughs?|silence)\)",
+                                    help="non-speech annotations in transcripts")
+    speaker_pattern: str = param(r"^(?P<speaker>[\p{Lu}][\p{L}\p{M}'. -]{0,30}):\s+",
+                                 help="a speaker label at the start of a cue")
+    join_gap: float = param(1.5, low=0, help="largest pause (s) between cue fragments that are joined")
+    header_lines: int = param(2, low=0, high=5, help="lines at the top and bottom of a page checked for headers")
+    header_min_pages: int = param(3, low=2, help="a header must repeat on at least this many pages")
+    header_share: float = param(0.3, low=0, high=1, help="... and on at least this share of the pages")
+    hyphens: str = param("-\u00ad\u00ac\u2010", help="characters that mark a line-end hyphenation")
+    join_lines: bool = param(True, help="rejoin broken OCR lines into paragraphs")
+    system_pattern: str = param(r"^(?:.{0,40}\b(?:joined|left|was added|was removed|changed the (?:group|subject)|created group)\b.{0,40}|<media omitted>|message deleted)$",
+                                help="message-export system lines")
+    forward_pattern: str = param(r"^(?:fwd?:|\[forwarded\]|forwarded:|>>)\s*", help="marker of a forwarded message")
+    boilerplate_min_pages: int = param(3, low=2, help="a web line repeated on this many pages is boilerplate")
+    boilerplate_share: float = param(0.2, low=0, high=1, help="... and on this share of the pages")
+
+
+context_key = no_context_key
+build_context = no_context
+
+PAGE_NUMBER = regex.compile(r"""^\s*(?:
+      [-–—.\s]*\d{1,4}[-–—.\s]*              # 12, - 12 -, 12.
+    | (?:page|p\.|pg\.?)\s*\d{1,4}           # page 12
+    | [ivxlcdm]{1,7}                         # roman numerals
+    | \d{1,4}\s*/\s*\d{1,4}                  # 3 / 40
+    )\s*$""", regex.I | regex.X)
+SENTENCE_END = regex.compile(r"[.!?…:;»\"”’)\]]\s*$")
+WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}ʼ'’]+")
+NAV_SEPARATORS = regex.compile(r"\s[|»›·•/]\s")
+
+
+def line_key(line: str) -> str:
+    """Lines compare equal across pages after digits become # and case and spacing are folded."""
+    return " ".join(regex.sub(r"\d+", "#", line.casefold()).split())
+
+
+def _pages(doc: dict) -> list[list[int]]:
+    meta = json.loads(doc["meta"])
+    pages = meta.get("pages") or [{"first": 0, "count": len(doc["segments"])}]
+    return [list(range(p["first"], p["first"] + p["count"])) for p in pages]
+
+
+# -- survey: per-source statistics ---------------------------------------------------------
+
+def survey_partition(docs: list[dict], params: Params) -> dict:
+    edges, web, vocab, first_text = Counter(), Counter(), Counter(), {}
+    pages = web_docs = 0
+    h = params.header_lines
+    for doc in docs:
+        if doc["medium"] == "print-ocr":
+            for page in _pages(doc):
+                pages += 1
+                lines = [doc["segments"][i] for i in page]
+                for line in set(line_key(x) for x in lines[:h] + lines[-h:] if x.strip()):
+                    edges[line] += 1
+            for seg in doc["segments"]:
+                vocab.update(w.casefold() for w in WORD.findall(seg))
+        elif doc["medium"] == "web":
+            web_docs += 1
+            web.update(set(line_key(s) for s in doc["segments"]))
+        elif doc["medium"] == "typed-message":
+            key = _message_key(doc, params)
+            first_text.setdefault(key, doc["id"])
+    return {"edges": edges, "pages": pages, "web": web, "web_docs": web_docs, "vocab": vocab, "first": first_text}
+
+
+def merge_surveys(partials: list[dict], params: Params) -> dict:
+    edges, web, vocab, first = Counter(), Counter(), Counter(), {}
+    pages = web_docs = 0
+    for p in partials:
+        edges.update(p["edges"])
+        web.update(p["web"])
+        vocab.update(p["vocab"])
+        pages += p["pages"]
+        web_docs += p["web_docs"]
+        for k, v in p["first"].items():
+            first.setdefault(k, v)
+    need_pages = max(params.header_min_pages, params.header_share * pages)
+    need_web = max(params.boilerplate_min_pages, params.boilerplate_share * web_docs)
+    return {"headers": sorted(k for k, n in edges.items() if n >= need_pages and not PAGE_NUMBER.match(k.replace("#", "1"))),
+            "boilerplate": sorted(k for k, n in web.items() if n >= need_web),
+            "vocab": sorted(vocab), "first": first}
+
+
+def partition_context(ctx: Any, survey: dict | None) -> dict | None:
+    return survey
+
+
+# -- apply -------------------------------------------------------------------------------
+
+def apply(docs: list[dict], params: Params, survey: dict | None):
+    rows: list[LedgerRow] = []
+    survey = survey or {"headers": [], "boilerplate": [], "vocab": [], "first": {}}
+    out = []
+    for doc in docs:
+        medium = doc["medium"]
+        if medium == "speech-transcript":
+            doc = clean_transcript(doc, params, rows)
+        elif medium == "print-ocr":
+            doc = clean_ocr(doc, params, set(survey["headers"]), set(survey["vocab"]), rows)
+        elif medium == "typed-message":
+            doc = clean_message(doc, params, survey["first"], rows)
+        elif medium == "web":
+            doc = clean_web(doc, params, set(survey["boilerplate"]), rows)
+        if doc is not None:
+            doc["original"] = list(doc["segments"])
+            out.append(doc)
+    return drop_empty("clean", out, rows), rows
+
+
+def _drop(doc: dict, drop: dict[int, tuple[str, str]], rows: list[LedgerRow]) -> dict:
+    for i in sorted(drop):
+        reason, detail = drop[i]
+        rows.append(remove_segment("clean", doc, i, reason, detail))
+    keep = [i for i in range(len(doc["segments"])) if i not in drop]
+    doc["segments"] = [doc["segments"][i] for i in keep]
+    doc["seg_index"] = [doc["seg_index"][i] for i in keep]
+    return doc
+
+
+def _join(doc: dict, groups: list[list[int]], reasons: dict[int, str], rows: list[LedgerRow], sep: dict[int, str]) -> dict:
+    """Join each group of positions into its first segment; the others leave with a ledger row."""
+    segs, idx = [], []
+    for group in groups:
+        text = doc["segments"][group[0]]
+        for j in group[1:]:
+            joiner = sep.get(j, " ")
+            rows.append(remove_segment("clean", doc, j, reasons.get(j, "joined"),
+                                       f"joined into segment {doc['seg_index'][group[0]]}"))
+            text = (text[:-1] if joiner == "" and text and text[-1] in "-\u00ad\u00ac\u2010" else text) + joiner + doc["segments"][j].lstrip()
+        segs.append(text)
+        idx.append(doc["seg_index"][group[0]])
+    doc["segments"], doc["seg_index"] = segs, idx
+    return doc
+
+
+def clean_transcript(doc: dict, params: Params, rows: list[LedgerRow]) -> dict:
+    meta = json.loads(doc["meta"])
+    cues = {c_i: c for c_i, c in enumerate(meta.get("cues", []))}
+    annotation = regex.compile(params.annotation_pattern, regex.I)
+    speaker_re = regex.compile(params.speaker_pattern)
+    drop, speakers = {}, {}
+    for i, seg in enumerate(doc["segments"]):
+        cue = cues.get(doc["seg_index"][i], {})
+        m = speaker_re.match(seg)
+        if m:
+            speakers[i] = m.group("speaker").strip()
+            seg = seg[m.end():]
+        else:
+            speakers[i] = cue.get("speaker")
+        stripped = " ".join(annotation.sub(" ", seg).split())
+        if not stripped.strip(" -–—.,"):
+            drop[i] = ("non-speech", "only a non-speech annotation")
+            continue
+        if stripped != seg.strip():
+            rows.append(LedgerRow("clean", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                  "annotation-removed", "non-speech annotation or speaker label removed", None, doc["segments"][i][:500]))
+        elif m:
+            rows.append(LedgerRow("clean", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                  "speaker-label", f"speaker label '{speakers[i]}' moved to metadata", None, None))
+        doc["segments"][i] = stripped.lstrip("- ").strip()
+    speaker_by_index = {doc["seg_index"][i]: s for i, s in speakers.items() if s}
+    doc = _drop(doc, drop, rows)
+    groups: list[list[int]] = []
+    for i, seg in enumerate(doc["segments"]):
+        si = doc["seg_index"][i]
+        if groups:
+            prev = groups[-1][-1]
+            psi = doc["seg_index"][prev]
+            gap = cues.get(si, {}).get("start", 0) - cues.get(psi, {}).get("end", 0)
+            if (not SENTENCE_END.search(doc["segments"][prev]) and speaker_by_index.get(si) == speaker_by_index.get(psi)
+                    and gap <= params.join_gap and seg[:1].islower()):
+                groups[-1].append(i)
+                continue
+        groups.append([i])
+    doc = _join(doc, groups, {}, rows, {})
+    meta["speakers"] = {str(k): v for k, v in sorted(speaker_by_index.items())}
+    doc["meta"] = json.dumps(meta, ensure_ascii=False, sort_keys=True)
+    return doc
+
+
+def clean_ocr(doc: dict, params: Params, headers: set[str], vocab: set[str], rows: list[LedgerRow]) -> dict:
+    h = params.header_lines
+    drop: dict[int, tuple[str, str]] = {}
+    page_of: dict[int, int] = {}
+    for p, page in enumerate(_pages(doc)):
+        for i in page:
+            page_of[i] = p
+        top, bottom = page[:h], page[-h:] if h else []
+        for pos in dict.fromkeys(top + bottom):
+            line = doc["segments"][pos]
+            where = "header" if pos in top else "footer"
+            if PAGE_NUMBER.match(line):
+                drop[pos] = ("page-number", f"page number at the {'top' if where == 'header' else 'bottom'} of page {p + 1}")
+            elif line_key(line) in headers:
+                drop[pos] = (f"running-{where}", f"repeated at the {'top' if where == 'header' else 'bottom'} of pages")
+    meta = json.loads(doc["meta"])
+    doc = _drop(doc, drop, rows)
+    # Rejoin hyphenated words and broken lines.
+    groups: list[list[int]] = []
+    reasons, sep = {}, {}
+    hyphens = params.hyphens
+    for i, seg in enumerate(doc["segments"]):
+        if groups:
+            prev = doc["segments"][groups[-1][-1]].rstrip()
+            nxt = seg.lstrip()
+            if prev and prev[-1] in hyphens and len(prev) > 1 and prev[-2].isalpha() and nxt[:1].isalpha() and nxt[:1].islower():
+                head = WORD.findall(prev[:-1])
+                tail = WORD.findall(nxt)
+                joined = (head[-1] if head else "") + (tail[0] if tail else "")
+                if joined.casefold() in vocab or prev[-1] != "-":
+                    reasons[i], sep[i] = "dehyphenated", ""
+                else:
+                    reasons[i], sep[i] = "line-joined", "-"
+                    doc["segments"][groups[-1][-1]] = prev[:-1]
+                groups[-1].append(i)
+                continue
+            if params.join_lines and not SENTENCE_END.search(prev) and nxt[:1].islower():
+                reasons[i] = "line-joined"
+                groups[-1].append(i)
+                continue
+        groups.append([i])
+    doc = _join(doc, groups, reasons, rows, sep)
+    meta["pages_removed_lines"] = len(drop)
+    doc["meta"] = json.dumps(meta, ensure_ascii=False, sort_keys=True)
+    return doc
+
+
+def _message_key(doc: dict, params: Params) -> str:
+    text = " ".join(doc["segments"])
+    text = regex.sub(params.forward_pattern, "", text, flags=regex.I)
+    return " ".join(text.casefold().split())
+
+
+def clean_message(doc: dict, params: Params, first: dict[str, str], rows: list[LedgerRow]) -> dict | None:
+    text = " ".join(doc["segments"]).strip()
+    if regex.match(params.system_pattern, text, flags=regex.I):
+        rows.append(remove_document("clean", doc, "system-message", text[:200]))
+        return None
+    meta = json.loads(doc["meta"])
+    if regex.match(params.forward_pattern, doc["segments"][0], flags=regex.I):
+        meta["forwarded"] = True
+        original = first.get(_message_key(doc, params))
+        if original and original != doc["id"]:
+            rows.append(remove_document("clean", doc, "forwarded-copy", "a forwarded copy of an earlier message", dup_of=original))
+            return None
+        doc["segments"][0] = regex.sub(params.forward_pattern, "", doc["segments"][0], flags=regex.I)
+        rows.append(LedgerRow("clean", "segment", "rewritten", doc["id"], doc["seg_index"][0], 0, "forward-marker",
+                              "forward marker removed; kept as forwarded", None, None))
+    doc["meta"] = json.dumps(meta, ensure_ascii=False, sort_keys=True)
+    drop = {i: ("empty", "empty after clean-up") for i, s in enumerate(doc["segments"]) if not s.strip()}
+    return _drop(doc, drop, rows)
+
+
+def clean_web(doc: dict, params: Params, boilerplate: set[str], rows: list[LedgerRow]) -> dict:
+    drop = {}
+    for i, seg in enumerate(doc["segments"]):
+        if len(NAV_SEPARATORS.findall(seg)) >= 2 and len(seg) < 200:
+            drop[i] = ("navigation", "a navigation line")
+        elif line_key(seg) in boilerplate:
+            drop[i] = ("web-boilerplate", "repeated across pages of the source")
+    return _drop(doc, drop, rows)

@@ -1,0 +1,267 @@
+"""Export: shards, splits, tokenizer, reports, ledger, datasheet and manifest.
+
+Streams the final partitions once; documents whose source may not be
+redistributed go to ``restricted/`` (or are excluded, by recipe) and never to
+the public shards, splits or tokenizer.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import sys
+from collections import Counter, defaultdict
+from dataclasses import dataclass
+from importlib import metadata
+from pathlib import Path
+
+from ..ledger import Counts, LedgerRow, conservation, remove_document
+from ..recipe import param
+from ..records import jsonable
+from ..storage import atomic_write_text, file_sha256, write_gzip_lines
+from . import tokenizer as tok
+
+VERSION = "1"
+PACKAGES = ("corpuskit", "fasttext-wheel", "numpy", "sentencepiece", "regex", "datasketch", "pandas", "pyarrow",
+            "typer", "rich", "ftfy", "matplotlib", "fonttools", "confusable-homoglyphs", "langcodes", "license-expression")
+
+
+@dataclass(frozen=True)
+class Params:
+    restricted: str = param("separate", choices=("separate", "exclude"),
+                            help="documents that may not be redistributed: a separate restricted/ folder, or left out")
+    vocab_size: int = param(8000, low=50, help="requested tokenizer vocabulary size")
+    model_type: str = param("unigram", choices=("unigram", "bpe"), help="tokenizer model")
+    alpha: float = param(0.3, low=0.0, high=1.0, help="temperature-sampling exponent across dialects")
+    dialect_floor: float = param(0.1, low=0, high=1, help="warn when a dialect's share of words is below this")
+    medium_floor: float = param(0.05, low=0, high=1, help="warn when a medium's share of words is below this")
+
+
+def _csv(rows: list[dict], columns: list[str] | None = None) -> str:
+    columns = columns or (list(rows[0]) if rows else ["empty"])
+    buf = io.StringIO()
+    w = csv.DictWriter(buf, fieldnames=columns, lineterminator="\n", extrasaction="ignore")
+    w.writeheader()
+    for r in rows:
+        w.writerow(r)
+    return buf.getvalue()
+
+
+def _text_lines(doc: dict):
+    yield from doc["segments"]
+    yield ""
+
+
+def write_outputs(runner, in_stage: str, parts, reports) -> dict:
+    from ..reports import balance, datasheet
+
+    recipe, cache, out = runner.recipe, runner.cache, runner.out
+    params: Params = recipe.stages["export"]
+    for sub in ("corpus", "splits", "tokenizer", "reports", "restricted"):
+        p = out / sub
+        if p.exists():
+            for f in p.iterdir():
+                if f.is_file():
+                    f.unlink()
+    export_rows: list[LedgerRow] = []
+    shard_docs = recipe.corpus.shard_docs
+    public, restricted, splits = [], [], defaultdict(list)
+    stats = balance.Accumulator()
+    script_inventory = balance.ScriptInventory()
+    kept_docs = kept_segs = 0
+    review = []
+    counts = Counts()
+    for p in parts:
+        docs = cache.read_docs(in_stage, p.key)
+        for d in docs:
+            counts.docs_in += 1
+            counts.segs_in += len(d["segments"])
+            if not d["redistributable"] and params.restricted == "exclude":
+                export_rows.append(remove_document("export", d, "not-redistributable",
+                                                   f"consent '{d['consent']}' / licence '{d['licence']}'"))
+                continue
+            kept_docs += 1
+            kept_segs += len(d["segments"])
+            counts.docs_out += 1
+            counts.segs_out += len(d["segments"])
+            stats.add(d)
+            script_inventory.add(d)
+            if d.get("seg_score"):
+                review.extend((d["id"], s, sc) for s, sc in zip(d["segments"], d["seg_score"]) if sc is not None)
+            (public if d["redistributable"] else restricted).append(d)
+            if d["redistributable"]:
+                splits[d["split"] or "train"].append(d)
+    for r in export_rows:
+        counts.removed[f"{r.unit}:{r.reason}"] += 1
+
+    def write_set(folder: Path, name: str, docs: list[dict]) -> None:
+        for i in range(0, max(len(docs), 1), shard_docs):
+            chunk = docs[i:i + shard_docs]
+            write_gzip_lines(folder / f"{name}-{i // shard_docs:05d}.jsonl.gz",
+                             (json.dumps(jsonable(d), ensure_ascii=False, sort_keys=True) for d in chunk))
+        atomic_write_text(folder / f"{name}.txt", "\n".join(line for d in docs for line in _text_lines(d)))
+
+    write_set(out / "corpus", "corpus", public)
+    if restricted:
+        write_set(out / "restricted", "corpus", restricted)
+        atomic_write_text(out / "restricted" / "README.txt",
+                          "Documents whose consent scope or licence does not allow redistribution.\n"
+                          "Keep this folder with the community that holds the material; do not publish it.\n")
+    for name in ("train", "dev", "test"):
+        docs = splits.get(name, [])
+        write_gzip_lines(out / "splits" / f"{name}.jsonl.gz",
+                         (json.dumps(jsonable(d), ensure_ascii=False, sort_keys=True) for d in docs))
+        atomic_write_text(out / "splits" / f"{name}.txt", "\n".join(line for d in docs for line in _text_lines(d)))
+
+    # Tokenizer on the public train split, report on the dev split.
+    tok_info = _tokenizer(out, params, recipe, splits)
+
+    # Ledger: every stage's rows in stage and partition order.
+    from .registry import STAGE_ORDER
+    ledger_totals: dict[str, dict[str, int]] = {}
+    ledger_lines = []
+    keys_by_stage = _partition_keys_by_stage(runner, reports, parts)
+
+    def rows_of(stage):
+        for key in keys_by_stage.get(stage, []):
+            for r in cache.read_ledger(stage, key).to_pylist():
+                yield r
+
+    removal_examples: dict[str, list[str]] = defaultdict(list)
+    rewrite_by_reason: Counter = Counter()
+    for stage in STAGE_ORDER:
+        tot = {"documents": 0, "segments_of_documents": 0, "segments": 0}
+        rows = rows_of(stage) if stage != "export" else (r.as_dict() for r in export_rows)
+        for r in rows:
+            ledger_lines.append(json.dumps(r, ensure_ascii=False, sort_keys=True))
+            if r["action"] == "removed" and r["unit"] == "document":
+                tot["documents"] += 1
+                tot["segments_of_documents"] += r["segments"]
+            elif r["action"] == "removed" and r["unit"] == "segment":
+                tot["segments"] += 1
+            if r["action"] == "removed" and r["unit"] in ("document", "segment"):
+                ex = removal_examples[f"{stage}:{r['reason']}"]
+                if len(ex) < 3 and r.get("text") and r["reason"] not in ("personal-data",):
+                    ex.append(r["text"][:120])
+            elif r["action"] == "rewritten":
+                rewrite_by_reason[f"{stage}:{r['reason']}"] += 1
+        ledger_totals[stage] = tot
+    write_gzip_lines(out / "ledger.jsonl.gz", ledger_lines)
+    ingest = reports[0].counts
+    cons = conservation(ledger_totals, ingest.docs_in, ingest.segs_in, kept_docs, kept_segs)
+
+    # Reports.
+    rep = out / "reports"
+    bal = balance.write_report(rep, stats, params, recipe)
+    atomic_write_text(rep / "script-inventory.csv", script_inventory.csv())
+    removal_rows = []
+    for s in reports + [type("R", (), {"name": "export", "counts": counts})()]:
+        for reason, n in sorted(s.counts.removed.items()):
+            removal_rows.append({"stage": s.name, "reason": reason, "removed": n,
+                                 "examples": " | ".join(removal_examples.get(f"{s.name}:{reason.split(':', 1)[1]}", []))})
+    atomic_write_text(rep / "removals.csv", _csv(removal_rows, ["stage", "reason", "removed", "examples"]))
+    atomic_write_text(rep / "rewrites.csv", _csv([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
+                                                 ["stage_reason", "rewrites"]))
+    extra = _stage_reports(runner, rep, review)
+
+    summary = {
+        "stages": [{"stage": s.name, **s.counts.as_dict()} for s in reports] + [{"stage": "export", **counts.as_dict()}],
+        "conservation": cons,
+    }
+    facts = {"recipe": recipe, "summary": summary, "balance": bal, "tokenizer": tok_info, "extra": extra,
+             "public_docs": len(public), "restricted_docs": len(restricted), "params": params,
+             "splits": {k: len(v) for k, v in splits.items()}, "sources": recipe.sources}
+    ds_text, unanswered = datasheet.render(recipe, facts)
+    atomic_write_text(out / "datasheet.md", ds_text)
+
+    manifest = {
+        "corpus": recipe.corpus.name, "language": recipe.corpus.language,
+        "recipe": {"file": recipe.path.name, "sha256": recipe.sha256},
+        "packages": {p: _version(p) for p in PACKAGES},
+        "python": ".".join(map(str, sys.version_info[:3])),
+        "unicode": {"python_unicodedata": __import__("unicodedata").unidata_version,
+                    "regex": getattr(__import__("regex"), "__version__", "")},
+        "counts": summary["stages"], "conservation": cons,
+        "tokenizer": tok_info.get("summary", {}), "dedup": extra.get("dedup_params", {}),
+        "langid": extra.get("langid_summary", {}),
+        "documents": {"public": len(public), "restricted": len(restricted)},
+        "datasheet_unanswered": unanswered,
+    }
+    files = sorted(p for p in out.rglob("*") if p.is_file() and _in_contract(p.relative_to(out)))
+    manifest["files"] = {str(p.relative_to(out)): {"sha256": file_sha256(p), "bytes": p.stat().st_size} for p in files}
+    atomic_write_text(out / "manifest.json", json.dumps(manifest, indent=2, ensure_ascii=False, sort_keys=True) + "\n")
+    if not (cons["documents"]["holds"] and cons["segments"]["holds"]):
+        from ..errors import DataError
+        raise DataError(f"{out}: the conservation check failed ({json.dumps(cons)}); the ledger does not account "
+                        "for every unit. This is a bug; the manifest records the figures.")
+    return {"counts": counts, "conservation": cons, "manifest": manifest}
+
+
+def _in_contract(rel: Path) -> bool:
+    return rel.parts[0] in ("corpus", "splits", "tokenizer", "reports", "restricted") or \
+        str(rel) in ("ledger.jsonl.gz", "datasheet.md")
+
+
+def _version(name: str) -> str:
+    try:
+        return metadata.version(name)
+    except metadata.PackageNotFoundError:
+        return "not installed"
+
+
+def _partition_keys_by_stage(runner, reports, final_parts) -> dict[str, list[str]]:
+    """Re-plan the run's partition keys per stage (cheap: markers are cached)."""
+    return runner.last_keys
+
+
+def _tokenizer(out: Path, params: Params, recipe, splits) -> dict:
+    train_lines = [s for d in splits.get("train", []) for s in d["segments"]]
+    if not train_lines:
+        atomic_write_text(out / "tokenizer" / "README.txt", "No public training text; no tokenizer was trained.\n")
+        return {"summary": {"trained": False}}
+    model, used = tok.train_tokenizer(train_lines, params.vocab_size, params.model_type, recipe.corpus.letters)
+    (out / "tokenizer").mkdir(parents=True, exist_ok=True)
+    from ..storage import atomic_write_bytes
+    atomic_write_bytes(out / "tokenizer" / "tokenizer.model", model)
+    dev = splits.get("dev") or splits.get("train")
+    rows = tok.dialect_report(model, tok.group_lines(dev))
+    atomic_write_text(out / "tokenizer" / "dialects.csv", _csv(rows))
+    summary = {"trained": True, "model_type": params.model_type, "vocab_requested": params.vocab_size,
+               "vocab_used": used, "character_coverage": 1.0, "normalization": "identity",
+               "train_lines": len(train_lines), "evaluated_on": "dev" if splits.get("dev") else "train"}
+    atomic_write_text(out / "tokenizer" / "summary.json", json.dumps(summary, indent=2, sort_keys=True) + "\n")
+    return {"summary": summary, "dialects": rows}
+
+
+def _stage_reports(runner, rep: Path, review) -> dict:
+    cache, recipe = runner.cache, runner.recipe
+    extra: dict = {}
+    if cache.has_blob("dedup", "report.json"):
+        d = cache.get_json("dedup", "report.json")
+        atomic_write_text(rep / "duplicate-clusters.csv",
+                          _csv(d["clusters"], ["cluster", "doc_id", "source", "kept", "kept_id", "max_similarity"]))
+        d = {k: v for k, v in d.items() if k != "clusters"}
+        atomic_write_text(rep / "dedup.json", json.dumps(d, indent=2, sort_keys=True) + "\n")
+        extra["dedup_params"] = d
+    if cache.has_blob("split", "report.json"):
+        extra["split"] = cache.get_json("split", "report.json")
+    ctx_report = getattr(runner, "langid_report", None)
+    if ctx_report and cache.has_blob("langid", ctx_report):
+        r = cache.get_json("langid", ctx_report)
+        atomic_write_text(rep / "langid.json", json.dumps(r, indent=2, sort_keys=True) + "\n")
+        if "confusion" in r:
+            labels = r["labels"]
+            atomic_write_text(rep / "langid-confusion.csv",
+                              _csv([{"gold": g, **{p: r["confusion"][g][p] for p in labels}} for g in labels], ["gold"] + labels))
+            atomic_write_text(rep / "langid-classes.csv",
+                              _csv([{"label": k, **v} for k, v in sorted(r["per_class"].items())],
+                                   ["label", "precision", "recall", "f1", "support"]))
+        extra["langid_summary"] = {"accuracy": r.get("accuracy"), "macro_f1": r.get("macro_f1"),
+                                   "threshold": r.get("threshold"), "examples": r.get("examples")}
+        from .langid import review_rows
+        from ..variants_table import neutralise_cell
+        rows = review_rows(review, r["threshold"]["value"], recipe.stages["langid"].review_size)
+        atomic_write_text(rep / "langid-review.csv",
+                          _csv([{k: neutralise_cell(str(v)) for k, v in x.items()} for x in rows],
+                               ["doc_id", "text", "p_target", "label"]))
+    return extra

@@ -1,0 +1,176 @@
+"""Unicode normalisation (UAX #15), invisible characters, character mapping tables and mojibake repair.
+
+Steps, in order, each a small named function (the ledger names the steps that
+changed a segment):
+
+``mojibake``   ftfy under conservative settings, only where its badness score drops;
+``invisible``  zero-width spaces, soft hyphens, stray BOMs, bidi and C0/C1 controls removed;
+               ZWJ/ZWNJ kept next to letters of scripts that use them (and in emoji);
+``nfc``        NFC (or NFKC, with the folded compatibility characters reported);
+``apostrophe`` apostrophe-like characters inside words written one way, per the corpus;
+``quotes``, ``dashes``, ``digits``   mapping tables;
+``whitespace`` Unicode spaces to U+0020, runs collapsed, ends trimmed.
+
+The result is idempotent: normalising twice changes nothing more.
+"""
+from __future__ import annotations
+
+import unicodedata
+from collections import Counter
+from dataclasses import dataclass
+
+import regex
+
+from ..ledger import LedgerRow
+from ..recipe import param
+from ._base import drop_empty, no_context
+
+VERSION = "1"
+
+
+@dataclass(frozen=True)
+class Params:
+    form: str = param("NFC", choices=("NFC", "NFKC"), help="Unicode normalisation form")
+    repair_mojibake: bool = param(True, help="repair text decoded with the wrong code page (ftfy)")
+    quotes: str = param("ascii", choices=("keep", "ascii"), help="curly and angle quotes")
+    dashes: str = param("hyphen", choices=("keep", "hyphen"), help="hyphen-like dashes and minus signs")
+    digits: str = param("ascii", choices=("keep", "ascii"), help="decimal digits of other scripts")
+
+
+def context_key(recipe, params) -> str:
+    return recipe.corpus.apostrophe
+
+
+def build_context(recipe, params, cache, key):
+    return recipe.corpus.apostrophe
+
+
+# Characters removed everywhere, written by name.
+INVISIBLE = frozenset(
+    "\N{ZERO WIDTH SPACE}\N{SOFT HYPHEN}\N{ZERO WIDTH NO-BREAK SPACE}\N{WORD JOINER}"
+    "\N{LEFT-TO-RIGHT MARK}\N{RIGHT-TO-LEFT MARK}\N{ARABIC LETTER MARK}"
+    "\N{LEFT-TO-RIGHT EMBEDDING}\N{RIGHT-TO-LEFT EMBEDDING}\N{POP DIRECTIONAL FORMATTING}"
+    "\N{LEFT-TO-RIGHT OVERRIDE}\N{RIGHT-TO-LEFT OVERRIDE}\N{LEFT-TO-RIGHT ISOLATE}"
+    "\N{RIGHT-TO-LEFT ISOLATE}\N{FIRST STRONG ISOLATE}\N{POP DIRECTIONAL ISOLATE}"
+    "\N{MONGOLIAN VOWEL SEPARATOR}\N{FUNCTION APPLICATION}\N{INVISIBLE TIMES}\N{INVISIBLE SEPARATOR}"
+)
+JOINERS = "\N{ZERO WIDTH JOINER}\N{ZERO WIDTH NON-JOINER}"
+# Scripts whose orthographies use ZWJ/ZWNJ (UAX #31 and the Unicode core spec, ch. 23).
+JOINER_SCRIPTS = ("Arabic", "Syriac", "Devanagari", "Bengali", "Gurmukhi", "Gujarati", "Oriya", "Tamil",
+                  "Telugu", "Kannada", "Malayalam", "Sinhala", "Khmer", "Myanmar", "Mongolian", "Tibetan")
+_JOINER_NEIGHBOUR = regex.compile(r"[%s\p{Extended_Pictographic}\p{M}]" % "".join(f"\\p{{scx={s}}}" for s in JOINER_SCRIPTS))
+CONTROLS = regex.compile(r"[\p{Cc}--[\t\n]]", regex.V1)
+APOSTROPHES = "'\N{RIGHT SINGLE QUOTATION MARK}\N{MODIFIER LETTER APOSTROPHE}\N{ACUTE ACCENT}\N{GRAVE ACCENT}\N{PRIME}\N{MODIFIER LETTER PRIME}"
+_IN_WORD_APOSTROPHE = regex.compile(r"(?<=[\p{L}\p{M}])[%s](?=\p{L})" % regex.escape(APOSTROPHES))
+APOSTROPHE_FORM = {"modifier": "\N{MODIFIER LETTER APOSTROPHE}", "ascii": "'"}
+QUOTES = str.maketrans({"\N{LEFT DOUBLE QUOTATION MARK}": '"', "\N{RIGHT DOUBLE QUOTATION MARK}": '"',
+                        "\N{DOUBLE LOW-9 QUOTATION MARK}": '"', "\N{DOUBLE HIGH-REVERSED-9 QUOTATION MARK}": '"',
+                        "\N{LEFT-POINTING DOUBLE ANGLE QUOTATION MARK}": '"', "\N{RIGHT-POINTING DOUBLE ANGLE QUOTATION MARK}": '"',
+                        "\N{LEFT SINGLE QUOTATION MARK}": "'", "\N{SINGLE LOW-9 QUOTATION MARK}": "'"})
+DASHES = str.maketrans({"\N{HYPHEN}": "-", "\N{NON-BREAKING HYPHEN}": "-", "\N{MINUS SIGN}": "-",
+                        "\N{FIGURE DASH}": "-"})
+_OTHER_DIGIT = regex.compile(r"[\p{Nd}--[0-9]]", regex.V1)
+_SPACES = regex.compile(r"[\p{Zs}\t]+")
+
+
+def _safe_ftfy_config():
+    import ftfy
+    return ftfy.TextFixerConfig(uncurl_quotes=False, fix_latin_ligatures=False, fix_character_width=False,
+                                fix_line_breaks=False, unescape_html=False, normalization=None,
+                                restore_byte_a0=False, replace_lossy_sequences=False,
+                                decode_inconsistent_utf8=False, remove_terminal_escapes=False,
+                                remove_control_chars=False, fix_surrogates=True, explain=True)
+
+
+def mojibake(text: str) -> tuple[str, str]:
+    """Repair mojibake where ftfy's badness measure says the result is more plausible.
+
+    >>> mojibake("ŋɔ́ bÉ›")[0]
+    'ŋɔ́ bɛ'
+    """
+    import ftfy
+    from ftfy.badness import badness, is_bad
+
+    if not is_bad(text):
+        return text, ""
+    fixed, steps = ftfy.fix_and_explain(text, _safe_ftfy_config())
+    if fixed != text and badness(fixed) < badness(text):
+        return fixed, ",".join(s.transformation for s in steps or [])
+    return text, ""
+
+
+def invisible(text: str) -> str:
+    out = []
+    for i, ch in enumerate(text):
+        if ch in INVISIBLE:
+            continue
+        if ch in JOINERS:
+            before = text[i - 1] if i else ""
+            after = text[i + 1] if i + 1 < len(text) else ""
+            if not (_JOINER_NEIGHBOUR.match(before) or _JOINER_NEIGHBOUR.match(after)):
+                continue
+        out.append(ch)
+    return CONTROLS.sub("", "".join(out))
+
+
+def compatibility_folds(text: str) -> Counter:
+    """Characters that NFKC changes beyond NFC, with counts."""
+    return Counter(ch for ch in text if unicodedata.normalize("NFKC", ch) != unicodedata.normalize("NFC", ch))
+
+
+def digits(text: str) -> str:
+    return _OTHER_DIGIT.sub(lambda m: str(unicodedata.digit(m.group(), 0)) if unicodedata.digit(m.group(), None) is not None else m.group(), text)
+
+
+def whitespace(text: str) -> str:
+    return " ".join(_SPACES.sub(" ", text).split(" ")).strip()
+
+
+def normalise_text(text: str, params: Params, apostrophe: str = "keep") -> tuple[str, list[str]]:
+    """The normalised text and the names of the steps that changed it."""
+    steps = []
+
+    def step(name, new):
+        nonlocal text
+        if new != text:
+            steps.append(name)
+            text = new
+
+    if params.repair_mojibake:
+        fixed, how = mojibake(text)
+        step("mojibake" + (f"({how})" if how else ""), fixed)
+    step("invisible", invisible(text))
+    if params.form == "NFKC":
+        folds = compatibility_folds(text)
+        if folds:
+            steps.append("nfkc-folded:" + " ".join(f"U+{ord(c):04X}x{n}" for c, n in sorted(folds.items())))
+        text = unicodedata.normalize("NFKC", text)
+    else:
+        step("nfc", unicodedata.normalize("NFC", text))
+    if apostrophe in APOSTROPHE_FORM:
+        step("apostrophe", _IN_WORD_APOSTROPHE.sub(APOSTROPHE_FORM[apostrophe], text))
+    if params.quotes == "ascii":
+        step("quotes", text.translate(QUOTES))
+    if params.dashes == "hyphen":
+        step("dashes", text.translate(DASHES))
+    if params.digits == "ascii":
+        step("digits", digits(text))
+    step("whitespace", whitespace(text))
+    return text, steps
+
+
+def apply(docs: list[dict], params: Params, apostrophe: str | None):
+    rows: list[LedgerRow] = []
+    for doc in docs:
+        keep = []
+        for i, seg in enumerate(doc["segments"]):
+            new, steps = normalise_text(seg, params, apostrophe or "keep")
+            if steps and steps != ["whitespace"]:
+                rows.append(LedgerRow("normalise", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                      "normalised", ",".join(steps), None, None))
+            doc["segments"][i] = new
+            keep.append(bool(new))
+        if not all(keep):
+            from ._base import keep_segments
+            keep_segments("normalise", doc, keep, ["empty-after-normalisation"] * len(keep), [""] * len(keep), rows)
+    return drop_empty("normalise", docs, rows), rows

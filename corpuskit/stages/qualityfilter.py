@@ -1,0 +1,135 @@
+"""Quality filters and personal-data scrubbing, each with its own reason code.
+
+Personal data (phone numbers, e-mail addresses, URLs carrying personal
+identifiers, and ID-number patterns from the recipe) is replaced by typed
+placeholders, or the document dropped, by recipe; the ledger counts each
+replacement without keeping the text.
+"""
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass
+
+import regex
+
+from ..ledger import LedgerRow, remove_document
+from ..recipe import param
+from ._base import drop_empty, keep_segments
+
+VERSION = "1"
+
+
+@dataclass(frozen=True)
+class Params:
+    min_chars: int = param(8, low=0, help="shorter segments are removed")
+    max_chars: int = param(5000, low=1, help="longer segments are removed")
+    min_script_share: float = param(0.5, low=0, high=1, help="least share of letters in the target script")
+    max_char_repeat: int = param(6, low=2, help="a character repeated more times in a row is junk")
+    max_digit_share: float = param(0.3, low=0, high=1, help="most share of digits")
+    max_punct_share: float = param(0.3, low=0, high=1, help="most share of punctuation")
+    max_symbol_share: float = param(0.2, low=0, high=1, help="most share of symbols")
+    max_url_share: float = param(0.3, low=0, high=1, help="most share of characters inside URLs")
+    max_emoji_share: float = param(0.3, low=0, high=1, help="most share of emoji")
+    max_repeated_lines: float = param(0.5, low=0, high=1, help="most share of repeated segments in a document")
+    pii: str = param("replace", choices=("replace", "drop-document", "keep"), help="what to do with personal data")
+    id_patterns: list[str] = param([], help="regular expressions for ID numbers to scrub")
+
+
+# Personal data, most specific first; each replaced by its placeholder.
+PII_PATTERNS = [
+    ("email", regex.compile(r"[\w.+-]+@[\w-]+(?:\.[\w-]+)+")),
+    ("url", regex.compile(r"""(?:https?://|www\.)\S*?(?:[?&](?:user|uid|id|phone|email|name|profile)=|/(?:u|user|users|profile|people)/)\S*""", regex.I)),
+    ("phone", regex.compile(r"""(?<![\w+])
+        (?:\+\d{1,3}[\s.-]?)?             # country code
+        (?:\(\d{1,4}\)[\s.-]?)?           # area code in brackets
+        \d{2,4}(?:[\s.-]\d{2,4}){2,4}     # groups of digits
+        (?![\w])""", regex.X)),
+]
+URL = regex.compile(r"https?://\S+|www\.\S+")
+EMOJI = regex.compile(r"[\p{Extended_Pictographic}\p{Emoji_Modifier}\N{VARIATION SELECTOR-16}\N{ZERO WIDTH JOINER}]")
+PLACEHOLDER = regex.compile(r"<(?:PHONE|EMAIL|URL|ID)>")
+
+
+def scrub(text: str, id_patterns: list[str] = ()) -> tuple[str, Counter]:
+    """Replace personal data with typed placeholders.
+
+    >>> scrub("call +44 20 7946 0958 or mail ana@example.org")
+    ('call <PHONE> or mail <EMAIL>', Counter({'email': 1, 'phone': 1}))
+    """
+    counts: Counter = Counter()
+    patterns = PII_PATTERNS + [("id", regex.compile(p)) for p in id_patterns]
+    for kind, pat in patterns:
+        text, n = pat.subn(f"<{kind.upper()}>", text)
+        if n:
+            counts[kind] += n
+    return text, counts
+
+
+def segment_problem(text: str, params: Params, script: str, target: str) -> tuple[str, str] | None:
+    """The first filter a segment fails, as (reason, detail), or None."""
+    bare = PLACEHOLDER.sub("", text)
+    n = len(bare)
+    if n < params.min_chars:
+        return "too-short", f"{n} characters < {params.min_chars}"
+    if n > params.max_chars:
+        return "too-long", f"{n} characters > {params.max_chars}"
+    m = regex.search(r"(.)\1{%d,}" % params.max_char_repeat, bare)
+    if m:
+        return "repeated-characters", f"'{m.group(1)}' repeated {len(m.group())} times"
+    url_chars = sum(len(u) for u in URL.findall(bare))
+    shares = [
+        ("digits", len(regex.findall(r"\p{Nd}", bare)) / n, params.max_digit_share),
+        ("punctuation", len(regex.findall(r"\p{P}", bare)) / n, params.max_punct_share),
+        ("symbols", len(regex.findall(r"[\p{S}--\p{Extended_Pictographic}]", bare, flags=regex.V1)) / n, params.max_symbol_share),
+        ("urls", url_chars / n, params.max_url_share),
+        ("emoji", len(EMOJI.findall(bare)) / n, params.max_emoji_share),
+    ]
+    for name, share, limit in shares:
+        if share > limit:
+            return f"too-many-{name}", f"{share:.2f} > {limit}"
+    letters = regex.findall(r"\p{L}", bare)
+    if letters:
+        in_script = len(regex.findall(r"\p{scx=%s}" % target, "".join(letters)))
+        if in_script / len(letters) < params.min_script_share:
+            return "wrong-script", f"{in_script / len(letters):.2f} of letters in {target} < {params.min_script_share}"
+    return None
+
+
+def apply(docs: list[dict], params: Params, target_script: str | None):
+    target_script = target_script or "Latn"
+    rows: list[LedgerRow] = []
+    out = []
+    for doc in docs:
+        found: Counter = Counter()
+        if params.pii != "keep":
+            for i, seg in enumerate(doc["segments"]):
+                new, counts = scrub(seg, params.id_patterns)
+                if counts:
+                    found += counts
+                    doc["segments"][i] = new
+                    rows.append(LedgerRow("filter", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                          "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(counts.items())), None, None))
+            if doc.get("original"):
+                doc["original"] = [scrub(s, params.id_patterns)[0] for s in doc["original"]]
+            if found and params.pii == "drop-document":
+                rows.append(remove_document("filter", doc, "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(found.items()))))
+                continue
+        keys = Counter(" ".join(s.casefold().split()) for s in doc["segments"])
+        repeated = sum(v - 1 for v in keys.values())
+        if len(doc["segments"]) > 2 and repeated / len(doc["segments"]) > params.max_repeated_lines:
+            rows.append(remove_document("filter", doc, "repeated-lines", f"{repeated} of {len(doc['segments'])} segments repeat"))
+            continue
+        problems = [segment_problem(s, params, "", target_script) for s in doc["segments"]]
+        keep_segments("filter", doc, [p is None for p in problems], [p[0] if p else None for p in problems],
+                      [p[1] if p else "" for p in problems], rows)
+        out.append(doc)
+    return drop_empty("filter", out, rows), rows
+
+
+
+def context_key(recipe, params) -> str:
+    return recipe.corpus.target_script
+
+
+def build_context(recipe, params, cache, key):
+    return recipe.corpus.target_script

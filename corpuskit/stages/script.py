@@ -1,0 +1,194 @@
+"""Script identification per token (UAX #24), confusable repair (UTS #39) and transliteration.
+
+A token's script is the majority Script value of its letters; characters whose
+Script is Common (Zyyy) or Inherited (Zinh) take the script of their
+neighbours, and Script_Extensions decide between candidates.  Script data
+come from fontTools.unicodedata (the Unicode Character Database's Scripts.txt
+and ScriptExtensions.txt); look-alike letters from the UTS #39 confusables
+data shipped with confusable-homoglyphs.
+"""
+from __future__ import annotations
+
+import json
+import os
+import unicodedata
+from collections import Counter
+from dataclasses import dataclass
+from functools import lru_cache
+
+import regex
+
+from ..ledger import LedgerRow
+from ..recipe import param
+from ..storage import file_sha256, stable_hash
+from . import transliterate as translit
+
+VERSION = "1"
+COMMON, INHERITED, UNKNOWN = "Zyyy", "Zinh", "Zzzz"
+TOKEN = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{MODIFIER LETTER APOSTROPHE}\p{Nd}]+")
+
+
+@dataclass(frozen=True)
+class Params:
+    repair_confusables: bool = param(True, help="rewrite look-alike letters to the token's dominant script")
+    tables: dict = param({}, help="transliteration tables by script code, e.g. {Cyrl = 'tables/cyrl-latn.tsv'}")
+
+
+def context_key(recipe, params) -> str:
+    tables = dict(params.tables)
+    for s in recipe.sources:
+        if s.transliterate:
+            tables[f"source:{s.id}"] = s.transliterate
+    return stable_hash(recipe.corpus.target_script,
+                       {k: file_sha256(recipe.resolve(v, f"[stages.script] tables.{k}")) for k, v in sorted(tables.items())})
+
+
+def build_context(recipe, params, cache, key):
+    tables = {k: translit.load_table(recipe.resolve(v, f"[stages.script] tables.{k}")) for k, v in params.tables.items()}
+    by_source = {s.id: translit.load_table(recipe.resolve(s.transliterate, f"[[sources]] id = '{s.id}' key 'transliterate'"))
+                 for s in recipe.sources if s.transliterate}
+    return {"target": recipe.corpus.target_script, "tables": tables, "by_source": by_source}
+
+
+@lru_cache(maxsize=65536)
+def char_script(ch: str) -> str:
+    from fontTools import unicodedata as ucd
+    return ucd.script(ch)
+
+
+@lru_cache(maxsize=65536)
+def char_extensions(ch: str) -> frozenset[str]:
+    from fontTools import unicodedata as ucd
+    return frozenset(ucd.script_extension(ch))
+
+
+def token_scripts(token: str) -> Counter:
+    """Letters per script in one token, with Common and Inherited resolved from neighbours."""
+    counts: Counter = Counter()
+    last = None
+    for ch in token:
+        sc = char_script(ch)
+        if sc in (COMMON, INHERITED):
+            ext = char_extensions(ch)
+            if last and last in ext:
+                sc = last
+            elif len(ext) == 1 and next(iter(ext)) not in (COMMON, INHERITED):
+                sc = next(iter(ext))
+            else:
+                continue  # takes the neighbours' script; not counted on its own
+        counts[sc] += 1
+        last = sc
+    return counts
+
+
+def token_script(token: str) -> str:
+    counts = token_scripts(token)
+    if not counts:
+        return COMMON
+    return sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))[0][0]
+
+
+def text_script(text: str) -> str:
+    counts: Counter = Counter()
+    for tok in TOKEN.findall(text):
+        counts.update(token_scripts(tok))
+    if not counts:
+        return COMMON
+    return sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))[0][0]
+
+
+@lru_cache(maxsize=1)
+def _confusables() -> dict[tuple[str, str], str]:
+    """(character, script) -> a look-alike letter of that script, from the UTS #39 data."""
+    import confusable_homoglyphs
+    path = os.path.join(os.path.dirname(confusable_homoglyphs.__file__), "confusables.json")
+    with open(path, encoding="utf-8") as f:
+        data = json.load(f)
+    table: dict[tuple[str, str], str] = {}
+    bad = ("FULLWIDTH", "MATHEMATICAL", "MODIFIER", "SMALL CAPITAL", "SUBSCRIPT", "SUPERSCRIPT", "LETTERLIKE")
+    for ch, glyphs in data.items():
+        if len(ch) != 1 or not ch.isalpha():
+            continue
+        for g in glyphs:
+            c = g["c"]
+            if len(c) != 1 or c == ch or any(b in g.get("n", "") for b in bad):
+                continue
+            if c.isupper() != ch.isupper():
+                continue
+            key = (ch, char_script(c))
+            if key not in table or ord(c) < ord(table[key]):
+                table[key] = c
+    return table
+
+
+def repair_token(token: str, target: str | None = None) -> tuple[str, bool]:
+    """Rewrite letters of a minority script that look like letters of the dominant one.
+
+    Returns the token and whether it is (still) mixed-script.
+
+    >>> repair_token("k\N{CYRILLIC SMALL LETTER A}ma")
+    ('kama', False)
+    """
+    counts = token_scripts(token)
+    if len(counts) < 2:
+        return token, False
+    ranked = sorted(counts.items(), key=lambda kv: (-kv[1], kv[0] != target, kv[0]))
+    dominant = ranked[0][0]
+    table = _confusables()
+    out, mixed = [], False
+    for ch in token:
+        sc = char_script(ch)
+        if sc not in (dominant, COMMON, INHERITED):
+            rep = table.get((ch, dominant))
+            if rep is None:
+                mixed = True
+            ch = rep or ch
+        out.append(ch)
+    return "".join(out), mixed
+
+
+def apply(docs: list[dict], params: Params, ctx: dict | None):
+    ctx = ctx or {"target": "Latn", "tables": {}, "by_source": {}}
+    rows: list[LedgerRow] = []
+    for doc in docs:
+        seg_scripts, mixed_tokens, changed_doc = [], [], False
+        source_table = ctx["by_source"].get(doc["source"])
+        for i, seg in enumerate(doc["segments"]):
+            new = seg
+            if params.repair_confusables:
+                pieces, repaired = [], []
+                last = 0
+                for m in TOKEN.finditer(seg):
+                    tok, is_mixed = repair_token(m.group(), ctx["target"])
+                    if tok != m.group():
+                        repaired.append(f"{m.group()}→{tok}")
+                    if is_mixed:
+                        mixed_tokens.append(tok)
+                    pieces.append(seg[last:m.start()] + tok)
+                    last = m.end()
+                new = "".join(pieces) + seg[last:]
+                if repaired:
+                    rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                          "confusable-repaired", "; ".join(repaired)[:500], None, seg[:500]))
+            script = text_script(new)
+            table = source_table or ctx["tables"].get(script)
+            if table is not None and (source_table is not None or script != ctx["target"]):
+                out = unicodedata.normalize("NFC", translit.apply_table(table, new))
+                if out != new:
+                    rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                          "transliterated", f"{table.source}→{table.target} ({table.name})", None, new[:500]))
+                    new = out
+                    changed_doc = True
+                script = text_script(new)
+            doc["segments"][i] = new
+            seg_scripts.append(script)
+        doc["seg_script"] = seg_scripts
+        if changed_doc:
+            doc["transliterated"] = True
+        scripts = Counter(s for s in seg_scripts if s not in (COMMON, INHERITED))
+        doc["script"] = scripts.most_common(1)[0][0] if scripts else COMMON
+        if mixed_tokens:
+            meta = json.loads(doc["meta"])
+            meta["mixed_script_tokens"] = sorted(set(mixed_tokens))[:50]
+            doc["meta"] = json.dumps(meta, ensure_ascii=False, sort_keys=True)
+    return docs, rows

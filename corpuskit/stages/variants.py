@@ -1,0 +1,63 @@
+"""Spelling variants: mapping tables the team controls, applied to word tokens.
+
+The table is a TSV of our own design (see ``corpuskit.variants_table``):
+``variant<TAB>canonical<TAB>scope<TAB>note`` where scope is ``all``,
+``dialect:NAME`` or ``source:ID``; a rules file holds ordered regular
+expressions over graphemes with context; a protected list is never rewritten.
+Tokens come from Unicode word segmentation (UAX #29, via the regex module).
+Case and surrounding punctuation are preserved; ``original`` keeps the text
+as it was.
+"""
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass
+
+from ..ledger import LedgerRow
+from ..recipe import param
+from ..storage import file_sha256, stable_hash
+from .. import variants_table as vt
+
+VERSION = "1"
+
+
+@dataclass(frozen=True)
+class Params:
+    table: str = param("", help="variant table (TSV: variant, canonical, scope, note)")
+    rules: str = param("", help="ordered rewrite rules (TSV: pattern, replacement, scope, note)")
+    protected: str = param("", help="words never rewritten, one per line")
+
+
+def _paths(recipe, params):
+    return [(k, recipe.resolve(v, f"[stages.variants] {k}")) for k, v in
+            (("table", params.table), ("rules", params.rules), ("protected", params.protected)) if v]
+
+
+def context_key(recipe, params) -> str:
+    return stable_hash({k: file_sha256(p) for k, p in _paths(recipe, params)})
+
+
+def build_context(recipe, params, cache, key):
+    paths = dict(_paths(recipe, params))
+    return vt.Mapper(vt.load_table(paths["table"]) if "table" in paths else [],
+                     vt.load_rules(paths["rules"]) if "rules" in paths else [],
+                     vt.load_protected(paths["protected"]) if "protected" in paths else set())
+
+
+def apply(docs: list[dict], params: Params, mapper):
+    rows: list[LedgerRow] = []
+    if mapper is None or mapper.empty:
+        return docs, rows
+    totals: Counter = Counter()
+    for doc in docs:
+        n_doc = 0
+        for i, seg in enumerate(doc["segments"]):
+            new, used = mapper.apply(seg, doc["dialect"], doc["source"])
+            if used:
+                doc["segments"][i] = new
+                n_doc += sum(used.values())
+                totals.update(used)
+        doc["variants_applied"] = n_doc
+    for rule, n in sorted(totals.items()):
+        rows.append(LedgerRow("variants", "document", "rewritten", "*", -1, 0, "variant-rule", f"{rule}: {n} tokens", None, None))
+    return docs, rows

@@ -1,0 +1,151 @@
+"""Content-addressed artefacts under ``OUT/.cache``, written atomically.
+
+A partition artefact is three files named by its key: the documents
+(``KEY.parquet``), its ledger rows (``KEY.ledger.parquet``) and a small JSON
+marker with its counts (``KEY.json``).  The marker is written last, so a
+partition counts as done only when all three are complete.
+"""
+from __future__ import annotations
+
+import gzip
+import hashlib
+import io
+import json
+import os
+import tempfile
+from pathlib import Path
+from typing import Any, Iterable
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from .errors import DataError
+from .ledger import LEDGER_SCHEMA, LedgerRow
+from .records import SCHEMA
+
+__all__ = ["stable_hash", "file_sha256", "atomic_write_bytes", "atomic_write_text", "Cache",
+           "write_gzip_lines"]
+
+FORMAT_VERSION = "1"
+
+
+def stable_hash(*parts: Any) -> str:
+    """SHA-256 of a JSON rendering of ``parts`` (sorted keys), shortened to 32 hex digits."""
+    blob = json.dumps(parts, sort_keys=True, ensure_ascii=False, default=_default).encode("utf-8")
+    return hashlib.sha256(blob).hexdigest()[:32]
+
+
+def _default(obj: Any) -> Any:
+    if hasattr(obj, "__dataclass_fields__"):
+        import dataclasses
+        return dataclasses.asdict(obj)
+    if isinstance(obj, (set, frozenset)):
+        return sorted(obj)
+    if isinstance(obj, Path):
+        return str(obj)
+    raise TypeError(f"cannot hash {type(obj).__name__}")
+
+
+def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        while block := f.read(chunk):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _atomic(path: Path, write) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as f:
+            write(f)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except OSError as exc:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise DataError(f"{path}: could not write ({exc.strerror or exc}); free disk space or "
+                        "choose another --out folder, then run again (finished work is kept).") from None
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def atomic_write_bytes(path: Path, data: bytes) -> None:
+    _atomic(path, lambda f: f.write(data))
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    atomic_write_bytes(path, text.encode("utf-8"))
+
+
+def write_gzip_lines(path: Path, lines: Iterable[str]) -> None:
+    """Gzip with no timestamp or file name inside, so equal content gives equal bytes."""
+    def write(f):
+        with gzip.GzipFile(filename="", mode="wb", fileobj=f, mtime=0, compresslevel=6) as gz:
+            with io.TextIOWrapper(gz, encoding="utf-8", newline="\n") as t:
+                for line in lines:
+                    t.write(line)
+                    t.write("\n")
+    _atomic(path, write)
+
+
+def _parquet_bytes(table: pa.Table) -> bytes:
+    sink = io.BytesIO()
+    pq.write_table(table, sink, compression="zstd")
+    return sink.getvalue()
+
+
+class Cache:
+    """The artefact store of one output folder."""
+
+    def __init__(self, out: Path):
+        self.root = Path(out) / ".cache"
+
+    def _dir(self, stage: str) -> Path:
+        return self.root / stage
+
+    def done(self, stage: str, key: str) -> bool:
+        return (self._dir(stage) / f"{key}.json").exists()
+
+    def marker(self, stage: str, key: str) -> dict[str, Any]:
+        return json.loads((self._dir(stage) / f"{key}.json").read_text("utf-8"))
+
+    def write_partition(self, stage: str, key: str, docs: list[dict], rows: list[LedgerRow],
+                        marker: dict[str, Any]) -> None:
+        d = self._dir(stage)
+        atomic_write_bytes(d / f"{key}.parquet", _parquet_bytes(pa.Table.from_pylist(docs, schema=SCHEMA)))
+        ledger = pa.Table.from_pylist([r.as_dict() for r in rows], schema=LEDGER_SCHEMA)
+        atomic_write_bytes(d / f"{key}.ledger.parquet", _parquet_bytes(ledger))
+        atomic_write_text(d / f"{key}.json", json.dumps({"format": FORMAT_VERSION, **marker}, sort_keys=True))
+
+    def read_docs(self, stage: str, key: str) -> list[dict]:
+        return pq.read_table(self._dir(stage) / f"{key}.parquet", schema=SCHEMA).to_pylist()
+
+    def read_ledger(self, stage: str, key: str) -> pa.Table:
+        return pq.read_table(self._dir(stage) / f"{key}.ledger.parquet", schema=LEDGER_SCHEMA)
+
+    # Side artefacts (models, signatures, surveys): any bytes under a key.
+    def blob_path(self, stage: str, name: str) -> Path:
+        return self._dir(stage) / name
+
+    def has_blob(self, stage: str, name: str) -> bool:
+        return self.blob_path(stage, name).exists()
+
+    def put_blob(self, stage: str, name: str, data: bytes) -> Path:
+        path = self.blob_path(stage, name)
+        atomic_write_bytes(path, data)
+        return path
+
+    def put_json(self, stage: str, name: str, obj: Any) -> None:
+        self.put_blob(stage, name, json.dumps(obj, sort_keys=True, ensure_ascii=False).encode("utf-8"))
+
+    def get_json(self, stage: str, name: str) -> Any:
+        return json.loads(self.blob_path(stage, name).read_text("utf-8"))

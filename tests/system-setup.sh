@@ -1,0 +1,14 @@
+#!/bin/sh
+# Installs the Debian packages some external checks read: the Unicode
+# Character Database files (unicode-data) and a headless browser (chromium).
+# Tests that need them skip with a reason when this is not possible.
+need=""
+[ -f /usr/share/unicode/NormalizationTest.txt.bz2 ] || [ -f /usr/share/unicode/NormalizationTest.txt ] || need="$need unicode-data"
+command -v chromium >/dev/null 2>&1 || need="$need chromium"
+[ -z "$need" ] && exit 0
+command -v apt-get >/dev/null 2>&1 || { echo "apt-get not available; tests needing$need will skip"; exit 0; }
+[ "$(id -u)" = 0 ] || { echo "not root; tests needing$need will skip"; exit 0; }
+echo "installing Debian packages:$need"
+apt-get update -qq >/dev/null 2>&1
+DEBIAN_FRONTEND=noninteractive apt-get install -y -qq $need >/dev/null 2>&1 || echo "could not install$need; those tests will skip"
+exit 0
