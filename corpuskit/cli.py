@@ -21,7 +21,7 @@ from .errors import CorpusError
 app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_show_locals=False,
                   help="Turn scattered text in a mostly-spoken language into a clean, documented corpus.")
 err = Console(stderr=True)
-out = Console()
+out = Console(width=200 if not sys.stdout.isatty() else None)
 
 
 @app.callback()

@@ -122,6 +122,12 @@ class Recipe:
         return self.stages[name]
 
 
+def glob_prefix(pattern: str) -> str:
+    """The part of a glob before its first wildcard."""
+    cut = min([i for i in (pattern.find(c) for c in "*?[") if i >= 0], default=len(pattern))
+    return pattern[:cut]
+
+
 def resolve_inside(folder: Path, value: str, key: str, recipe_path: Path, allowed: bool) -> Path:
     path = (folder / value)
     try:
@@ -231,6 +237,9 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
             raise RecipeError(f"{path}: {where} key 'format' = '{src.format}' is not a known reader"
                               f"{_suggest(src.format, READERS)}")
         _check_licence(src.licence, f"{where} key 'licence'", path)
+        if not corpus.allow_outside_paths:
+            static = os.path.dirname(glob_prefix(src.path)) or "."
+            resolve_inside(path.parent, static, f"{where} key 'path'", path, False)
         sources.append(src)
     ids = [s.id for s in sources]
     dup = {i for i in ids if ids.count(i) > 1}

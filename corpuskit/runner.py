@@ -8,6 +8,7 @@ stages that must see everything), and a killed run resumes where it stopped.
 """
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import fcntl
 import json
@@ -56,6 +57,11 @@ class RunResult:
     @property
     def executed(self) -> dict[str, int]:
         return {s.name: s.computed for s in self.stages}
+
+
+@contextlib.contextmanager
+def _quiet_progress(name: str, total: int):
+    yield lambda n: None
 
 
 class OutputLock:
@@ -142,7 +148,7 @@ class Runner:
         self.out = Path(out)
         self.cache = Cache(self.out)
         self.engine = engine
-        self.progress = progress or (lambda *a, **k: None)
+        self.progress = progress or _quiet_progress
         self.warnings: list[str] = []
         self.last_keys: dict[str, list[str]] = {}
         self.langid_report: str | None = None

@@ -128,9 +128,12 @@ def predict(model, lines: list[str]) -> list[dict[str, float]]:
     """Label probabilities per line through fastText's low-level API (safe under numpy 2)."""
     if not lines:
         return []
+    # One call per line: multilinePredict in fasttext-wheel 0.9.2 repeats the first
+    # probability for every label (measured here), and predict() fails under numpy 2.
     n = len(model.get_labels())
-    labels, probs = model.f.multilinePredict([prepare_line(x) + "\n" for x in lines], n, 0.0, "strict")
-    return [{lab.replace("__label__", ""): min(float(p), 1.0) for lab, p in zip(ls, ps)} for ls, ps in zip(labels, probs)]
+    f = model.f
+    return [{lab[9:]: min(float(p), 1.0) for p, lab in f.predict(prepare_line(x) + "\n", n, 0.0, "strict")}
+            for x in lines]
 
 
 def target_scores(model, lines: list[str], language: str) -> tuple[np.ndarray, list[str]]:

@@ -1,0 +1,168 @@
+"""End-to-end behaviour of the runner: conservation, determinism, caching, resumption, the CLI."""
+import gzip
+import hashlib
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+from hypothesis import given, strategies as st
+from typer.testing import CliRunner
+
+from corpuskit.api import load_corpus, load_ledger, load_report, run
+from corpuskit.cli import app
+from corpuskit.ledger import count_partition, remove_document, remove_segment
+from corpuskit.records import new_document
+from corpuskit.runner import _check_partition
+
+from .conftest import ROOT, copy_demo
+
+CONTRACT = ("corpus", "splits", "tokenizer", "reports", "restricted", "ledger.jsonl.gz", "datasheet.md", "manifest.json")
+
+
+def contract_files(out: Path) -> dict[str, str]:
+    files = {}
+    for p in sorted(out.rglob("*")):
+        rel = p.relative_to(out)
+        if p.is_file() and rel.parts[0] in CONTRACT:
+            files[str(rel)] = hashlib.sha256(p.read_bytes()).hexdigest()
+    return files
+
+
+def test_demo_outputs_and_conservation(demo_run):
+    out = demo_run.out
+    for name in ("corpus/corpus-00000.jsonl.gz", "corpus/corpus.txt", "ledger.jsonl.gz", "manifest.json", "datasheet.md",
+                 "splits/train.jsonl.gz", "tokenizer/tokenizer.model", "tokenizer/dialects.csv", "reports/balance.html"):
+        assert (out / name).exists(), name
+    m = json.loads((out / "manifest.json").read_text())
+    assert m["conservation"]["documents"]["holds"] and m["conservation"]["segments"]["holds"]
+    c = m["conservation"]["documents"]
+    assert c["in"] == c["kept"] + c["removed"]
+    for rel, info in m["files"].items():
+        assert hashlib.sha256((out / rel).read_bytes()).hexdigest() == info["sha256"]
+    # The manifest and outputs carry no absolute paths or timestamps.
+    assert str(out) not in (out / "manifest.json").read_text()
+
+
+def test_every_source_kind_ingested(demo_run):
+    ingest = demo_run.stage("ingest").counts
+    assert ingest.docs_in > 300
+    df = load_corpus(demo_run.out)
+    restricted = load_corpus(demo_run.out, restricted=True)
+    assert set(df["source"]) | set(restricted["source"]) >= {"radio-vtt", "radio-srt", "booklets", "group-chat",
+                                                             "sentence-sheet", "valley-radio-web", "river-hymns"}
+
+
+def test_restricted_source_never_public(demo_run):
+    public = load_corpus(demo_run.out)
+    assert "group-chat" not in set(public["source"])
+    for split in ("train", "dev", "test"):
+        df = load_corpus(demo_run.out, split=split)
+        assert df.empty or "group-chat" not in set(df["source"])
+    assert "group-chat" in set(load_corpus(demo_run.out, restricted=True)["source"])
+
+
+def test_api_loads_ledger_and_reports(demo_run):
+    ledger = load_ledger(demo_run.out)
+    assert {"stage", "reason", "doc_id"} <= set(ledger.columns)
+    assert not load_report(demo_run.out, "balance-dialect").empty
+
+
+def test_determinism_and_cache(tmp_path):
+    recipe = copy_demo(tmp_path)
+    a = run(recipe, tmp_path / "a", workers=1)
+    b = run(recipe, tmp_path / "b", workers=2)
+    assert contract_files(tmp_path / "a") == contract_files(tmp_path / "b")
+    again = run(recipe, tmp_path / "a", workers=1)
+    assert all(n == 0 for name, n in again.executed.items() if name != "export"), again.executed
+    assert contract_files(tmp_path / "a") == contract_files(tmp_path / "b")
+    # Touch one source: only its partitions are recomputed by per-partition stages.
+    page = tmp_path / "sample_texts" / "web" / "page-001.txt"
+    page.write_text(page.read_text() + "Mɛkɔ bé yɔŋé lɔ́ wasi dená sekɛ.\n")
+    changed = run(recipe, tmp_path / "a", workers=1)
+    assert changed.stage("ingest").computed == 1
+    web_parts = changed.stage("clean").computed
+    assert 1 <= web_parts < a.stage("clean").computed + a.stage("clean").reused
+    assert changed.stage("langid").computed == web_parts
+    del b
+
+
+def test_kill_and_resume(tmp_path):
+    recipe = copy_demo(tmp_path)
+    ref = tmp_path / "ref"
+    run(recipe, ref, workers=1)
+    out = tmp_path / "killed"
+    for delay in (1.5, 3.0):
+        proc = subprocess.Popen([sys.executable, "-m", "corpuskit.cli", "run", str(recipe), "--out", str(out),
+                                 "--workers", "1", "--no-progress"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                                cwd=tmp_path)
+        time.sleep(delay)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+    run(recipe, out, workers=1)
+    assert contract_files(out) == contract_files(ref)
+    assert not list(out.rglob("*.tmp"))
+
+
+def test_second_run_on_same_folder_refused(tmp_path):
+    from corpuskit.errors import LockedError
+    from corpuskit.runner import OutputLock
+    with OutputLock(tmp_path):
+        with pytest.raises(LockedError, match="another corpuskit run"):
+            with OutputLock(tmp_path):
+                pass
+    with OutputLock(tmp_path):  # released: not stuck
+        pass
+
+
+def test_cli_runner_and_subprocess(tmp_path, demo_run):
+    runner = CliRunner()
+    r = runner.invoke(app, ["check", str(ROOT / "recipes" / "demo.toml")], env={"COLUMNS": "300"})
+    assert r.exit_code == 0, r.output
+    assert "valid" in r.stdout
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[corpus]\nname = 'x'\nlanguage = 'qnv'\nfoo = 1\n")
+    r = runner.invoke(app, ["check", str(bad)], env={"COLUMNS": "300"})
+    assert r.exit_code == 2 and "unknown key 'foo'" in r.stderr
+    doc = load_corpus(demo_run.out)["id"].iloc[0]
+    r = runner.invoke(app, ["trace", doc, "--out", str(demo_run.out)], env={"COLUMNS": "300"})
+    assert r.exit_code == 0 and "kept in corpus/" in r.stdout
+    proc = subprocess.run([str(Path(sys.executable).parent / "corpuskit"), "status", str(ROOT / "recipes" / "demo.toml"),
+                           "--out", str(tmp_path / "none")], capture_output=True, text=True)
+    assert proc.returncode == 0 and "stale" in proc.stdout
+
+
+def test_new_project_checks(tmp_path):
+    r = CliRunner().invoke(app, ["new", str(tmp_path / "proj"), "--language", "qab"])
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "proj" / "recipe.toml").exists() and (tmp_path / "proj" / "datasheet-answers.toml").exists()
+
+
+# -- conservation as a property ------------------------------------------------------------
+
+@given(st.lists(st.lists(st.text(min_size=1, max_size=5), min_size=0, max_size=6), min_size=0, max_size=8),
+       st.integers(0, 2**32 - 1))
+def test_conservation_holds_for_random_drop_and_rewrite(docs_segments, seed):
+    import random
+    rng = random.Random(seed)
+    docs = [new_document(id=f"d{i}", source="s", segments=list(segs)) for i, segs in enumerate(docs_segments)]
+    n_in, segs_in = len(docs), sum(len(d["segments"]) for d in docs)
+    rows, out = [], []
+    for d in docs:
+        r = rng.random()
+        if r < 0.2:
+            rows.append(remove_document("t", d, "random"))
+            continue
+        keep = [rng.random() < 0.7 for _ in d["segments"]]
+        for i, k in enumerate(keep):
+            if not k:
+                rows.append(remove_segment("t", d, i, "random"))
+        d["segments"] = [s.upper() for s, k in zip(d["segments"], keep) if k]
+        out.append(d)
+    _check_partition("t", "k", n_in, segs_in, out, rows)  # raises if anything is unaccounted for
+    c = count_partition([], out, rows)
+    assert n_in == c.docs_out + sum(1 for r in rows if r.unit == "document")

@@ -1,0 +1,125 @@
+"""Each recipe mistake gives one sentence naming the file, the key and the fix."""
+import pytest
+
+from corpuskit.errors import RecipeError
+from corpuskit.recipe import is_valid_language_tag, load_recipe
+
+BASE = '''
+[corpus]
+name = "t"
+language = "qnv"
+
+[[sources]]
+id = "s"
+path = "texts/*.txt"
+format = "text"
+medium = "web"
+licence = "CC-BY-4.0"
+consent = "redistribution"
+'''
+
+
+def write(tmp_path, text):
+    (tmp_path / "texts").mkdir(exist_ok=True)
+    (tmp_path / "texts" / "a.txt").write_text("one line\n", "utf-8")
+    p = tmp_path / "recipe.toml"
+    p.write_text(text, "utf-8")
+    return p
+
+
+def error(tmp_path, text) -> str:
+    with pytest.raises(RecipeError) as exc:
+        load_recipe(write(tmp_path, text))
+    return str(exc.value)
+
+
+def test_valid_recipe_loads(tmp_path):
+    r = load_recipe(write(tmp_path, BASE))
+    assert r.corpus.language == "qnv" and r.sources[0].id == "s"
+    assert [p.name for p in r.source_files(r.sources[0])] == ["a.txt"]
+
+
+def test_unknown_key_suggests(tmp_path):
+    msg = error(tmp_path, BASE + '\n[stages.dedup]\nthreshhold = 0.8\n')
+    assert "recipe.toml" in msg and "[stages.dedup]" in msg and "'threshhold'" in msg and "did you mean 'threshold'" in msg
+
+
+def test_unknown_stage_suggests(tmp_path):
+    assert "did you mean 'dedup'" in error(tmp_path, BASE + '\n[stages.dedupe]\n')
+
+
+def test_mistyped_value_names_key_and_fix(tmp_path):
+    msg = error(tmp_path, BASE + '\n[stages.dedup]\nthreshold = "high"\n')
+    assert "key 'threshold'" in msg and "must be a number" in msg
+
+
+def test_out_of_range(tmp_path):
+    assert "between 0.1 and 1.0" in error(tmp_path, BASE + '\n[stages.dedup]\nthreshold = 3\n')
+
+
+def test_missing_key(tmp_path):
+    msg = error(tmp_path, BASE.replace('medium = "web"\n', ""))
+    assert "missing key 'medium'" in msg and "[[sources]]" in msg
+
+
+def test_bad_choice(tmp_path):
+    msg = error(tmp_path, BASE.replace('consent = "redistribution"', 'consent = "public"'))
+    assert "key 'consent'" in msg and "redistribution" in msg
+
+
+def test_path_escaping_folder_refused(tmp_path):
+    msg = error(tmp_path, BASE.replace('texts/*.txt', '../../etc/*'))
+    assert "outside the recipe's folder" in msg and "allow_outside_paths" in msg
+
+
+def test_symlink_out_of_folder_refused(tmp_path):
+    outside = tmp_path.parent / f"{tmp_path.name}-outside"
+    outside.mkdir()
+    (outside / "b.txt").write_text("x\n")
+    write(tmp_path, BASE)
+    (tmp_path / "texts" / "link.txt").symlink_to(outside / "b.txt")
+    r = load_recipe(tmp_path / "recipe.toml")
+    with pytest.raises(RecipeError, match="outside the recipe's folder"):
+        r.source_files(r.sources[0])
+
+
+def test_symlink_loop_is_a_clear_error(tmp_path):
+    write(tmp_path, BASE.replace('texts/*.txt', 'loop/*.txt'))
+    (tmp_path / "loop").symlink_to(tmp_path / "loop")
+    r = load_recipe(tmp_path / "recipe.toml")
+    with pytest.raises(RecipeError):
+        r.source_files(r.sources[0])
+
+
+def test_too_many_files(tmp_path):
+    r = write(tmp_path, BASE.replace('name = "t"', 'name = "t"\nmax_files_per_source = 3'))
+    for i in range(5):
+        (tmp_path / "texts" / f"f{i}.txt").write_text("x\n")
+    rec = load_recipe(r)
+    with pytest.raises(RecipeError, match="matches more than 3 files"):
+        rec.source_files(rec.sources[0])
+
+
+def test_bad_licence(tmp_path):
+    assert "SPDX" in error(tmp_path, BASE.replace("CC-BY-4.0", "Creative Commons"))
+
+
+def test_unknown_format_suggests(tmp_path):
+    assert "did you mean 'webvtt'" in error(tmp_path, BASE.replace('format = "text"', 'format = "webvt"'))
+
+
+def test_toml_syntax_error_names_line(tmp_path):
+    assert "line" in error(tmp_path, BASE + "\n[corpus\n")
+
+
+# RFC 5646 Appendix A examples (valid and invalid tags), per the project's references sheet.
+@pytest.mark.parametrize("tag,ok", [("qaa-Qaaa-QM-x-southern", True), ("sr-Latn-RS", True), ("es-419", True),
+                                    ("de-CH-1901", True), ("de-419-DE", False), ("a-DE", False),
+                                    ("ar-a-aaa-b-bbb-a-ccc", False), ("qnv", True), ("qnv-x-hill", True)])
+def test_bcp47_rfc5646_examples(tag, ok):
+    assert is_valid_language_tag(tag) is ok
+
+
+def test_invalid_language_tag(tmp_path):
+    msg = error(tmp_path, BASE.replace('language = "qnv"', 'language = "xx-yy-zz-qq"'))
+    assert "BCP 47" in msg and "'language'" in msg
