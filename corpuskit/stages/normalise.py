@@ -95,7 +95,7 @@ def mojibake(text: str) -> tuple[str, str]:
         return text, ""
     fixed, steps = ftfy.fix_and_explain(text, _safe_ftfy_config())
     if fixed != text and badness(fixed) < badness(text):
-        return fixed, ",".join(s.transformation for s in steps or [])
+        return fixed, ",".join(f"{s.action}:{s.parameter}" for s in steps or [])
     return text, ""
 
 
