@@ -1,5 +1,7 @@
 # Two commands do all set-up on a fresh machine: `make demo` and `make test`.
-PYTHON ?= $(shell command -v python3.12 || command -v python3.11 || command -v python3)
+# The first interpreter that really runs and is 3.11 or 3.12 (fastText has no newer wheel).
+PYTHON ?= $(shell for p in python3.11 python3.12 python3; do \
+	$$p -c 'import sys; sys.exit(not (3, 11) <= sys.version_info[:2] <= (3, 12))' >/dev/null 2>&1 && { command -v $$p; break; }; done)
 VENV := .venv
 BIN := $(VENV)/bin
 OUT ?= demo-output
