@@ -56,8 +56,8 @@ INVISIBLE = frozenset(
 )
 JOINERS = "\N{ZERO WIDTH JOINER}\N{ZERO WIDTH NON-JOINER}"
 # Scripts whose orthographies use ZWJ/ZWNJ (UAX #31 and the Unicode core spec, ch. 23).
-JOINER_SCRIPTS = ("Arabic", "Syriac", "Devanagari", "Bengali", "Gurmukhi", "Gujarati", "Oriya", "Tamil",
-                  "Telugu", "Kannada", "Malayalam", "Sinhala", "Khmer", "Myanmar", "Mongolian", "Tibetan")
+JOINER_SCRIPTS = ("Arab", "Syrc", "Deva", "Beng", "Guru", "Gujr", "Orya", "Taml",   # ISO 15924 codes
+                  "Telu", "Knda", "Mlym", "Sinh", "Khmr", "Mymr", "Mong", "Tibt")
 _JOINER_NEIGHBOUR = regex.compile(r"[%s\p{Extended_Pictographic}\p{M}]" % "".join(f"\\p{{scx={s}}}" for s in JOINER_SCRIPTS))
 CONTROLS = regex.compile(r"[\p{Cc}--[\t\n]]", regex.V1)
 APOSTROPHES = "'\N{RIGHT SINGLE QUOTATION MARK}\N{MODIFIER LETTER APOSTROPHE}\N{ACUTE ACCENT}\N{GRAVE ACCENT}\N{PRIME}\N{MODIFIER LETTER PRIME}"
