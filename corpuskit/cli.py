@@ -248,7 +248,11 @@ def variants_propose(recipe: Path = typer.Argument(...), out_dir: Path = typer.O
                      sheet: Path = typer.Option(Path("variant-review.csv"), help="review sheet to write"),
                      top: int = typer.Option(200, help="candidates to propose")) -> None:
     """Propose ranked variant candidates from the corpus into a review sheet."""
-    from .discovery import propose_from_run
+    try:
+        from .discovery import propose_from_run
+    except ImportError:
+        err.print("error: variant discovery is not built yet; edit the variant table by hand for now.")
+        raise typer.Exit(2)
     from .recipe import load_recipe
 
     try:
@@ -264,7 +268,11 @@ def variants_accept(sheet: Path = typer.Argument(..., help="the reviewed sheet")
                     table: Path = typer.Option(..., help="variant table to update"),
                     rejected: Path = typer.Option(None, help="file remembering rejected pairs")) -> None:
     """Read a reviewed sheet back: accepted pairs into the table, rejected pairs remembered."""
-    from .discovery import accept_sheet
+    try:
+        from .discovery import accept_sheet
+    except ImportError:
+        err.print("error: variant discovery is not built yet; edit the variant table by hand for now.")
+        raise typer.Exit(2)
     try:
         added, refused = accept_sheet(sheet, table, rejected or table.with_suffix(".rejected.tsv"))
     except CorpusError as exc:
