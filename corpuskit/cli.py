@@ -3,9 +3,6 @@
 from __future__ import annotations
 
 import contextlib
-import gzip
-import json
-import shutil
 import sys
 import time
 from pathlib import Path
@@ -67,9 +64,6 @@ def _summary(result) -> None:
         t.add_row(s.name, str(c.docs_in), str(c.docs_out), str(c.segs_in), str(c.segs_out), str(s.computed),
                   str(s.reused), removed or "-")
     out.print(t)
-    ingest = result.stages[0]
-    per_source = result.manifest and result.manifest.get("counts")
-    del per_source, ingest
     if result.conservation:
         cd, cs = result.conservation["documents"], result.conservation["segments"]
         ok = cd["holds"] and cs["holds"]
@@ -287,5 +281,3 @@ def main() -> None:
         err.print("interrupted; finished partitions are kept and the next run resumes.")
         sys.exit(130)
 
-
-_unused = (gzip, json, shutil)

@@ -132,11 +132,9 @@ class TextFile:
                 line = raw.decode(encoding)
             except UnicodeDecodeError as exc:
                 line = raw.decode(encoding, errors="replace")
-                bad = raw.count(b"\x00")
                 self.issues.append(rewrite("ingest", self.file_id, n, "undecodable-bytes",
                                            f"{self.rel} line {n} byte offset {start + exc.start}: "
                                            f"bytes not valid {encoding} replaced by U+FFFD"))
-                del bad
             except LookupError:
                 raise DataError(f"{self.rel}: unknown encoding '{encoding}'; set the source's encoding to a "
                                 "Python codec name such as 'cp1251', or 'detect'.") from None

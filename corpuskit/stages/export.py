@@ -120,7 +120,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     from .registry import STAGE_ORDER
     ledger_totals: dict[str, dict[str, int]] = {}
     ledger_lines = []
-    keys_by_stage = _partition_keys_by_stage(runner, reports, parts)
+    keys_by_stage = runner.last_keys
 
     def rows_of(stage):
         for key in keys_by_stage.get(stage, []):
@@ -207,11 +207,6 @@ def _version(name: str) -> str:
         return metadata.version(name)
     except metadata.PackageNotFoundError:
         return "not installed"
-
-
-def _partition_keys_by_stage(runner, reports, final_parts) -> dict[str, list[str]]:
-    """Re-plan the run's partition keys per stage (cheap: markers are cached)."""
-    return runner.last_keys
 
 
 def _tokenizer(out: Path, params: Params, recipe, splits) -> dict:

@@ -147,10 +147,11 @@ def normalise_text(text: str, params: Params, apostrophe: str = "keep") -> tuple
         text = unicodedata.normalize("NFKC", text)
     else:
         step("nfc", unicodedata.normalize("NFC", text))
-    if apostrophe in APOSTROPHE_FORM:
-        step("apostrophe", _IN_WORD_APOSTROPHE.sub(APOSTROPHE_FORM[apostrophe], text))
+    # Quotes first: a mapped quote between letters is then an apostrophe, as on the next pass.
     if params.quotes == "ascii":
         step("quotes", text.translate(QUOTES))
+    if apostrophe in APOSTROPHE_FORM:
+        step("apostrophe", _IN_WORD_APOSTROPHE.sub(APOSTROPHE_FORM[apostrophe], text))
     if params.dashes == "hyphen":
         step("dashes", text.translate(DASHES))
     if params.digits == "ascii":

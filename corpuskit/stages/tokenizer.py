@@ -66,10 +66,8 @@ def dialect_report(model: bytes, docs_by_dialect: dict[str, list[str]]) -> list[
                      "fertility": round(pieces / words, 4) if words else None,
                      "unknown_rate": round(unknown / pieces, 6) if pieces else None})
     fert = [r["fertility"] for r in rows if r["fertility"]]
-    gap = round(max(fert) - min(fert), 4) if fert else None
     for r in rows:
         r["gap_to_best"] = round(r["fertility"] - min(fert), 4) if r["fertility"] else None
-    del gap
     return rows
 
 
