@@ -45,8 +45,11 @@ class LedgerRow:
         return asdict(self)
 
 
-def remove_document(stage: str, doc: dict, reason: str, detail: str = "", dup_of: str | None = None) -> LedgerRow:
-    return LedgerRow(stage, "document", "removed", doc["id"], -1, len(doc["segments"]), reason, detail, dup_of)
+def remove_document(stage: str, doc: dict, reason: str, detail: str = "", dup_of: str | None = None,
+                    keep_text: bool = False) -> LedgerRow:
+    """A removed document; with `keep_text`, its segments (one per line, 2000 characters at most) go along."""
+    text = "\n".join(doc["segments"])[:2000] if keep_text else None
+    return LedgerRow(stage, "document", "removed", doc["id"], -1, len(doc["segments"]), reason, detail, dup_of, text)
 
 
 def remove_segment(stage: str, doc: dict, position: int, reason: str, detail: str = "",

@@ -1,12 +1,17 @@
 """Stages scored against the demo's ground truth (sample_texts/ground-truth.json), plus invariants."""
 import json
 import unicodedata
+from collections import Counter
+
+import regex
 
 from hypothesis import given, strategies as st
 
 from corpuskit.api import load_corpus, load_ledger
 from corpuskit.stages.normalise import Params as NParams, normalise_text
 from corpuskit.variants_table import Mapper, VariantEntry, tokens
+
+WORD = regex.compile(r"[\p{L}\p{M}]+")
 
 
 def test_page_furniture_removed(demo_run, truth):
@@ -22,28 +27,27 @@ def test_page_furniture_removed(demo_run, truth):
 
 
 def test_dehyphenation(demo_run, truth):
-    corpus = " ".join(" ".join(s) for s in load_corpus(demo_run.out)["segments"])
     ledger = load_ledger(demo_run.out)
-    joined = ledger[(ledger.stage == "clean") & (ledger.reason == "dehyphenated")]
-    planted = truth["hyphenation"]
-    words = {unicodedata.normalize("NFC", h["word"]).casefold() for h in planted}
-    rejoined = sum(1 for w in words if w in corpus.casefold())
-    recall = rejoined / len(words)
-    precision = min(1.0, len(words) / max(len(joined), 1)) if len(joined) >= rejoined else 1.0
-    print(f"dehyphenation: {len(joined)} joins, {len(planted)} planted, recall {recall:.3f}")
-    assert recall >= 0.95
+    joins = ledger[(ledger.stage == "clean") & (ledger.reason == "dehyphenated")]
+    found = Counter((d.rsplit("/", 1)[-1], regex.search(r"rejoined '([^']*)'", x).group(1))
+                    for d, x in zip(joins.doc_id, joins.detail))
+    planted = Counter((h["booklet"], unicodedata.normalize("NFC", WORD.findall(h["word"])[0])) for h in truth["hyphenation"])
+    hits = sum((found & planted).values())
+    precision, recall = hits / sum(found.values()), hits / sum(planted.values())
+    print(f"dehyphenation: {sum(found.values())} joins, {sum(planted.values())} planted, "
+          f"precision {precision:.3f} recall {recall:.3f}")
+    assert precision >= 0.95 and recall >= 0.95
 
 
 def test_mixed_script_repair(demo_run, truth):
     ledger = load_ledger(demo_run.out)
     rep = ledger[ledger.reason == "confusable-repaired"]
-    fixed = {p.split("→")[1] for d in rep.detail for p in d.split("; ")}
-    planted = {unicodedata.normalize("NFC", m["fixed"]) for m in truth["mixed_script"]}
+    fixed = {tuple(p.split("→")) for d in rep.detail for p in d.split("; ")}
+    planted = {(m["token"], unicodedata.normalize("NFC", m["fixed"])) for m in truth["mixed_script"]}
     recall = len(planted & fixed) / len(planted)
     precision = len(planted & fixed) / len(fixed)
-    print(f"mixed-script repair: precision {precision:.3f} recall {recall:.3f} ({len(planted)} planted)")
-    # Measured 0.75 / 0.60 on 5 planted tokens; the issue's 0.98 target is not reached yet.
-    assert precision >= 0.7 and recall >= 0.6
+    print(f"mixed-script repair: precision {precision:.3f} recall {recall:.3f} ({len(planted)} planted, both directions)")
+    assert precision >= 0.98 and recall >= 0.98
 
 
 def test_cyrillic_tradition_in_latin_with_original_kept(demo_run, truth):
@@ -71,22 +75,41 @@ def test_near_duplicates_found(demo_run, truth):
     ledger = load_ledger(demo_run.out)
     removed = ledger[ledger.reason.isin(["near-duplicate", "exact-duplicate"])]
     short = lambda i: i.replace("../sample_texts/", "")  # noqa: E731 - ids carry the path relative to the recipe
-    pairs = {frozenset((short(d), short(t))) for d, t in zip(removed.doc_id, removed.dup_of)}
-    planted = {frozenset((n["doc"], n["of"])) for n in truth["near_duplicate"]}
-    recall = len(pairs & planted) / len(planted)
-    print(f"near-duplicates: {len(pairs)} removed pairs, {len(planted)} planted, recall {recall:.3f}")
-    # Measured 0.58 at threshold 0.7: one-word resubmissions of short sentences fall below the
-    # threshold. The issue's 0.95 target is not reached yet.
-    assert recall >= 0.5
+    kept_twin = {short(d): short(t) for d, t in zip(removed.doc_id, removed.dup_of)}
+    cluster_of = lambda d: kept_twin.get(d, d)  # noqa: E731 - a removed twin names its cluster's keeper
+    planted = [(n["doc"], n["of"]) for n in truth["near_duplicate"]]
+    parent: dict[str, str] = {}
+    root = lambda x: x if parent.get(x, x) == x else root(parent[x])  # noqa: E731 - union-find over planted pairs
+    for a, b in planted:
+        parent[root(a)] = root(b)
+    members = {x for pair in planted for x in pair}
+    found = [cluster_of(a) == cluster_of(b) for a, b in planted]
+    right = [d in members and root(d) == root(k) for d, k in kept_twin.items()]
+    recall, precision = sum(found) / len(found), sum(right) / len(right)
+    print(f"near-duplicates: {len(right)} removed, {len(planted)} planted pairs, precision {precision:.3f} recall {recall:.3f}")
+    assert precision >= 0.95 and recall >= 0.95
 
 
-def test_contact_language_removed(demo_run, truth):
-    kept = " ".join(" ".join(s) for s in load_corpus(demo_run.out)["segments"]) + \
-        " ".join(" ".join(s) for s in load_corpus(demo_run.out, restricted=True)["segments"])
-    planted = [c["text"] for c in truth["contact_segment"]]
-    left = [c for c in planted if c in kept]
-    print(f"contact-language segments: {len(planted)} planted, {len(left)} left")
-    assert len(left) / len(planted) <= 0.05
+def test_contact_language_and_noise_removed(demo_run, truth):
+    ledger = load_ledger(demo_run.out)
+    gone = ledger[(ledger.stage == "langid") & (ledger.action == "removed")]
+    removed = [t for text in gone.text.dropna() for t in text.split("\n")]
+    planted = {c["text"] for c in truth["contact_segment"]} | {n["text"] for n in truth["noise_segment"]}
+    precision = sum(1 for r in removed if r in planted) / len(removed)
+    recall = len(planted & set(removed)) / len(planted)
+    print(f"contact-language and noise segments: {len(planted)} planted, {len(removed)} removed, "
+          f"precision {precision:.3f} recall {recall:.3f}")
+    assert precision >= 0.98 and recall >= 0.95
+
+
+def test_code_switched_messages_kept(demo_run, truth):
+    """A message that switches to the contact language part-way stays: most of it is the target language."""
+    repaired = {m["token"]: m["fixed"] for m in truth["mixed_script"]}
+    switched = [" ".join(repaired.get(w, w) for w in c["text"].split()) for c in truth["code_switch"]]
+    kept = " ".join(" ".join(s) for s in load_corpus(demo_run.out, restricted=True).segments)
+    found = [t for t in switched if " ".join(t.split()[:3]) in kept]
+    print(f"code-switched messages: {len(switched)} planted, {len(found)} kept")
+    assert len(found) / len(switched) >= 0.95
 
 
 # -- invariants --------------------------------------------------------------------------------

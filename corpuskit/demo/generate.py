@@ -13,6 +13,7 @@ import argparse
 import csv
 import io
 import json
+import math
 import random
 import unicodedata
 from collections import defaultdict
@@ -36,6 +37,8 @@ ENGLISH = ["the weather is fine today and the market opens early",
            "thank you for your support during the rainy season",
            "this page uses cookies to improve your experience",
            "new books arrived at the library last week"]
+# Bytes of source text at scale 1 (seeds and ground truth aside), measured on seed 7.
+BYTES_PER_SCALE = 69_000
 PEOPLE = ["Tavi", "Moru", "Selka", "Bendo", "Irra", "Kelo", "Yamun", "Doru", "Lisse", "Amak"]
 
 
@@ -202,7 +205,8 @@ def booklets(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n_books:
                 lines[i] = lines[i].replace("m", "rn", 1)
             _w(folder / f"page-{p:03d}.txt", "\n".join(lines) + "\n")
         if reprint_of is not None:
-            truth.add("near_duplicate", kind="reprint", doc=f"booklets:book-{b + 1:02d}", of=f"booklets:book-{reprint_of + 1:02d}")
+            truth.add("near_duplicate", kind="reprint", doc=f"booklets:booklets/book-{b + 1:02d}",
+                      of=f"booklets:booklets/book-{reprint_of + 1:02d}")
     return texts
 
 
@@ -226,21 +230,13 @@ def messages(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n: int) 
         if rng.random() < 0.2:
             words = text.split()
             i_w = rng.randrange(len(words))
-            w = words[i_w]
-            if w[0].lower() in CONFUSABLE and len(w) > 2:
-                bad = CONFUSABLE[w[0].lower()] if w[0].islower() else w[0]
-                mixed = bad + w[1:]
-                if mixed != w:
-                    words[i_w] = mixed
-                    truth.add("mixed_script", token=mixed, fixed=w)
+            core = words[i_w].rstrip(".?")
+            if core.isalpha() and ascii_variant(core) != core:
+                truth.add("variant", variant=ascii_variant(core).lower(), canonical=core.lower())
+                words[i_w] = ascii_variant(core) + words[i_w][len(core):]
             text = " ".join(words)
-        if rng.random() < 0.2:
-            words = text.split()
-            i_w = rng.randrange(len(words))
-            if ascii_variant(words[i_w]) != words[i_w]:
-                truth.add("variant", variant=ascii_variant(words[i_w]).lower(), canonical=words[i_w].lower())
-                words[i_w] = ascii_variant(words[i_w])
-            text = " ".join(words)
+        if rng.random() < 0.3:
+            text = plant_confusable(text, rng, truth)
         if rng.random() < 0.15:
             text += " " + contact_sentence(rng, (2, 4))[:-1].lower()
             truth.add("code_switch", text=text)
@@ -256,6 +252,20 @@ def messages(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n: int) 
         sent_texts.append(text)
         lines.append(f"[{ts}] {who}: {text}")
     _w(out / "messages" / "river-group.txt", "\n".join(lines) + "\n")
+
+
+def plant_confusable(text: str, rng: random.Random, truth: Truth, swap: dict[str, str] = CONFUSABLE) -> str:
+    """Type one look-alike letter of the other script inside a word, as a second keyboard does."""
+    words = text.split()
+    i_w = rng.randrange(len(words))
+    w = words[i_w]
+    spots = [i for i, ch in enumerate(w) if ch in swap]
+    if len(w) < 3 or not w.isalpha() or not spots:
+        return text
+    i = rng.choice(spots)
+    words[i_w] = w[:i] + swap[w[i]] + w[i + 1:]
+    truth.add("mixed_script", token=words[i_w], fixed=w)
+    return " ".join(words)
 
 
 def sheet(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n: int) -> None:
@@ -275,6 +285,8 @@ def sheet(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n: int) -> 
             truth.add("near_duplicate", kind="resubmission", doc=f"sentence-sheet:sheet/sentences.csv:r{i + 1}",
                       of=f"sentence-sheet:sheet/sentences.csv:{orig[0]}")
             d = orig[2]
+        if rng.random() < 0.1:
+            text = plant_confusable(text, rng, truth)
         if rng.random() < 0.05:
             email = f"{rng.choice(PEOPLE).lower()}{rng.randint(1, 99)}@example.org"
             text += f" {email}"
@@ -291,8 +303,9 @@ def web(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n: int) -> No
     for i in range(n):
         body = [lex.sentence(rng, "coast", (8, 14)) for _ in range(rng.randint(4, 8))]
         if rng.random() < 0.3:
-            body.insert(rng.randrange(len(body)), ENGLISH[rng.randrange(len(ENGLISH))].capitalize() + ".")
-            truth.add("noise_segment", text=body[-1])
+            noise = ENGLISH[rng.randrange(len(ENGLISH))].capitalize() + "."
+            body.insert(rng.randrange(len(body)), noise)
+            truth.add("noise_segment", text=noise)
         lines = [nav, f"Story {i + 1}"] + body + ["Share this page", foot]
         truth.add("web_boilerplate", page=i + 1, lines=[nav, "Share this page", foot])
         _w(out / "web" / f"page-{i + 1:03d}.txt", "\n".join(lines) + "\n")
@@ -302,8 +315,11 @@ def cyrillic_booklet(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, 
     lines = []
     for i in range(n):
         s = lex.sentence(rng, "river", (6, 12))
-        lines.append(to_cyrillic(s))
-        truth.add("cyrillic_line", latin=nfc(s), cyrillic=lines[-1])
+        cyr = to_cyrillic(s)
+        truth.add("cyrillic_line", latin=nfc(s), cyrillic=cyr)
+        if rng.random() < 0.25:  # a Latin look-alike typed inside a Cyrillic word
+            cyr = plant_confusable(cyr, rng, truth, {v: k for k, v in CONFUSABLE.items()})
+        lines.append(cyr)
     _w(out / "cyrillic" / "river-hymns.txt", "\n\n".join(lines) + "\n")
 
 
@@ -332,13 +348,20 @@ def generate(out: Path, seed: int = 7, scale: int = 1) -> dict:
     return data
 
 
+def scale_for_mb(mb: float) -> int:
+    """The scale whose source text (seeds and ground truth aside) comes to about `mb` mebibytes."""
+    return max(1, math.ceil(mb * 2**20 / BYTES_PER_SCALE))
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", type=Path, default=Path("sample_texts"))
     ap.add_argument("--seed", type=int, default=7)
-    ap.add_argument("--scale", type=int, default=1, help="multiply the number of documents")
+    size = ap.add_mutually_exclusive_group()
+    size.add_argument("--scale", type=int, default=1, help="multiply the number of documents")
+    size.add_argument("--mb", type=float, help="generate about this many MiB of source text")
     args = ap.parse_args()
-    generate(args.out, args.seed, args.scale)
+    generate(args.out, args.seed, scale_for_mb(args.mb) if args.mb else args.scale)
 
 
 if __name__ == "__main__":

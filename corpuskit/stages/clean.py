@@ -23,7 +23,7 @@ from ..ledger import LedgerRow, remove_document, remove_segment
 from ..recipe import param
 from ._base import drop_empty, no_context, no_context_key
 
-VERSION = "1"
+VERSION = "3"
 
 
 @dataclass(frozen=True)
@@ -56,6 +56,8 @@ PAGE_NUMBER = regex.compile(r"""^\s*(?:
     )\s*$""", regex.I | regex.X)
 SENTENCE_END = regex.compile(r"[.!?…:;»\"”’)\]]\s*$")
 WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}ʼ'’]+")
+HYPHENATED = regex.compile(r"[\p{L}\p{M}]+(?:-[\p{L}\p{M}]+)+")
+SPACE_BEFORE_PUNCT = regex.compile(r"\s+([.,!?;:…])")
 NAV_SEPARATORS = regex.compile(r"\s[|»›·•/]\s")
 
 
@@ -85,6 +87,7 @@ def survey_partition(docs: list[dict], params: Params) -> dict:
                     edges[line] += 1
             for seg in doc["segments"]:
                 vocab.update(w.casefold() for w in WORD.findall(seg))
+                vocab.update(w.casefold() for w in HYPHENATED.findall(seg))
         elif doc["medium"] == "web":
             web_docs += 1
             web.update(set(line_key(s) for s in doc["segments"]))
@@ -148,15 +151,17 @@ def _drop(doc: dict, drop: dict[int, tuple[str, str]], rows: list[LedgerRow]) ->
     return doc
 
 
-def _join(doc: dict, groups: list[list[int]], reasons: dict[int, str], rows: list[LedgerRow], sep: dict[int, str]) -> dict:
+def _join(doc: dict, groups: list[list[int]], reasons: dict[int, str], rows: list[LedgerRow], sep: dict[int, str],
+          details: dict[int, str] | None = None) -> dict:
     """Join each group of positions into its first segment; the others leave with a ledger row."""
     segs, idx = [], []
     for group in groups:
         text = doc["segments"][group[0]]
         for j in group[1:]:
             joiner = sep.get(j, " ")
+            where = f"joined into segment {doc['seg_index'][group[0]]}"
             rows.append(remove_segment("clean", doc, j, reasons.get(j, "joined"),
-                                       f"joined into segment {doc['seg_index'][group[0]]}"))
+                                       f"{details[j]}; {where}" if details and j in details else where))
             text = (text[:-1] if joiner == "" and text and text[-1] in "-\u00ad\u00ac\u2010" else text) + joiner + doc["segments"][j].lstrip()
         segs.append(text)
         idx.append(doc["seg_index"][group[0]])
@@ -178,7 +183,10 @@ def clean_transcript(doc: dict, params: Params, rows: list[LedgerRow]) -> dict:
             seg = seg[m.end():]
         else:
             speakers[i] = cue.get("speaker")
-        stripped = " ".join(annotation.sub(" ", seg).split())
+        stripped = annotation.sub(" ", seg)
+        if stripped != seg:  # an inline annotation leaves no space before the closing punctuation
+            stripped = SPACE_BEFORE_PUNCT.sub(r"\1", stripped)
+        stripped = " ".join(stripped.split())
         if not stripped.strip(" -–—.,"):
             drop[i] = ("non-speech", "only a non-speech annotation")
             continue
@@ -228,7 +236,7 @@ def clean_ocr(doc: dict, params: Params, headers: set[str], vocab: set[str], row
     doc = _drop(doc, drop, rows)
     # Rejoin hyphenated words and broken lines.
     groups: list[list[int]] = []
-    reasons, sep = {}, {}
+    reasons, sep, details = {}, {}, {}
     hyphens = params.hyphens
     for i, seg in enumerate(doc["segments"]):
         if groups:
@@ -237,12 +245,17 @@ def clean_ocr(doc: dict, params: Params, headers: set[str], vocab: set[str], row
             if prev and prev[-1] in hyphens and len(prev) > 1 and prev[-2].isalpha() and nxt[:1].isalpha() and nxt[:1].islower():
                 head = WORD.findall(prev[:-1])
                 tail = WORD.findall(nxt)
-                joined = (head[-1] if head else "") + (tail[0] if tail else "")
-                if joined.casefold() in vocab or prev[-1] != "-":
-                    reasons[i], sep[i] = "dehyphenated", ""
-                else:
+                left, right = (head[-1] if head else ""), (tail[0] if tail else "")
+                if prev[-1] == "-" and f"{left}-{right}".casefold() in vocab and (left + right).casefold() not in vocab:
                     reasons[i], sep[i] = "line-joined", "-"
+                    details[i] = f"kept the hyphen of '{left}-{right}', attested with it"
                     doc["segments"][groups[-1][-1]] = prev[:-1]
+                else:
+                    # Common practice: a line-end hyphen between two lower-case parts is a break
+                    # unless the hyphenated form is attested and the joined one is not.
+                    reasons[i], sep[i] = "dehyphenated", ""
+                    attested = "attested" if (left + right).casefold() in vocab else "not attested either way"
+                    details[i] = f"rejoined '{left + right}' ({attested})"
                 groups[-1].append(i)
                 continue
             if params.join_lines and not SENTENCE_END.search(prev) and nxt[:1].islower():
@@ -250,7 +263,7 @@ def clean_ocr(doc: dict, params: Params, headers: set[str], vocab: set[str], row
                 groups[-1].append(i)
                 continue
         groups.append([i])
-    doc = _join(doc, groups, reasons, rows, sep)
+    doc = _join(doc, groups, reasons, rows, sep, details)
     meta["pages_removed_lines"] = len(drop)
     doc["meta"] = json.dumps(meta, ensure_ascii=False, sort_keys=True)
     return doc

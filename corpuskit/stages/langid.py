@@ -30,7 +30,7 @@ from ..recipe import param
 from ..storage import file_sha256, stable_hash
 from ._base import keep_segments
 
-VERSION = "1"
+VERSION = "2"
 UND = "und"
 LETTER = regex.compile(r"\p{L}")
 URL = regex.compile(r"https?://\S+|www\.\S+|\S+@\S+\.\w+")
@@ -289,7 +289,8 @@ def apply(docs: list[dict], params: Params, ctx: dict):
         if share < params.min_share:
             rows.append(remove_document("langid", doc, "not-target-language",
                                         f"target-language share {share:.2f} < {params.min_share}; labels "
-                                        + ", ".join(f"{k}={v}" for k, v in sorted(Counter(labels).items()))))
+                                        + ", ".join(f"{k}={v}" for k, v in sorted(Counter(labels).items())),
+                                        keep_text=True))
             continue
         if not all(target):
             reasons = [None if t else f"lang:{lab}" for t, lab in zip(target, labels)]

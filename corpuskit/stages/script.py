@@ -23,7 +23,7 @@ from ..recipe import param
 from ..storage import file_sha256, stable_hash
 from . import transliterate as translit
 
-VERSION = "1"
+VERSION = "2"
 COMMON, INHERITED, UNKNOWN = "Zyyy", "Zinh", "Zzzz"
 TOKEN = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{MODIFIER LETTER APOSTROPHE}\p{Nd}]+")
 
@@ -39,7 +39,7 @@ def context_key(recipe, params) -> str:
     for s in recipe.sources:
         if s.transliterate:
             tables[f"source:{s.id}"] = s.transliterate
-    return stable_hash(recipe.corpus.target_script,
+    return stable_hash(recipe.corpus.target_script, recipe.corpus.letters,
                        {k: file_sha256(recipe.resolve(v, f"[stages.script] tables.{k}")) for k, v in sorted(tables.items())})
 
 
@@ -47,7 +47,8 @@ def build_context(recipe, params, cache, key):
     tables = {k: translit.load_table(recipe.resolve(v, f"[stages.script] tables.{k}")) for k, v in params.tables.items()}
     by_source = {s.id: translit.load_table(recipe.resolve(s.transliterate, f"[[sources]] id = '{s.id}' key 'transliterate'"))
                  for s in recipe.sources if s.transliterate}
-    return {"target": recipe.corpus.target_script, "tables": tables, "by_source": by_source}
+    return {"target": recipe.corpus.target_script, "tables": tables, "by_source": by_source,
+            "letters": recipe.corpus.letters}
 
 
 @lru_cache(maxsize=65536)
@@ -98,13 +99,13 @@ def text_script(text: str) -> str:
 
 
 @lru_cache(maxsize=1)
-def _confusables() -> dict[tuple[str, str], str]:
-    """(character, script) -> a look-alike letter of that script, from the UTS #39 data."""
+def _confusables() -> dict[tuple[str, str], tuple[str, ...]]:
+    """(character, script) -> look-alike letters of that script, from the UTS #39 data."""
     import confusable_homoglyphs
     path = os.path.join(os.path.dirname(confusable_homoglyphs.__file__), "confusables.json")
     with open(path, encoding="utf-8") as f:
         data = json.load(f)
-    table: dict[tuple[str, str], str] = {}
+    table: dict[tuple[str, str], set[str]] = {}
     bad = ("FULLWIDTH", "MATHEMATICAL", "MODIFIER", "SMALL CAPITAL", "SUBSCRIPT", "SUPERSCRIPT", "LETTERLIKE")
     for ch, glyphs in data.items():
         if len(ch) != 1 or not ch.isalpha():
@@ -115,16 +116,37 @@ def _confusables() -> dict[tuple[str, str], str]:
                 continue
             if c.isupper() != ch.isupper():
                 continue
-            key = (ch, char_script(c))
-            if key not in table or ord(c) < ord(table[key]):
-                table[key] = c
-    return table
+            table.setdefault((ch, char_script(c)), set()).add(c)
+    return {k: tuple(sorted(v)) for k, v in table.items()}
 
 
-def repair_token(token: str, target: str | None = None) -> tuple[str, bool]:
+def look_alikes(ch: str, script: str) -> tuple[str, ...]:
+    """Letters of `script` that look like `ch`: its own UTS #39 entries, and the lower case of
+    its capital's entries (the data lists Cyrillic К as K, but small к only as the rare ĸ)."""
+    table = _confusables()
+    found = list(table.get((ch, script), ()))
+    if ch.islower() and len(ch.upper()) == 1:
+        found += [c.lower() for c in table.get((ch.upper(), script), ()) if len(c.lower()) == 1]
+    return tuple(dict.fromkeys(found))
+
+
+def best_look_alike(ch: str, script: str, letters: str = "") -> str | None:
+    """The look-alike to write: one of the orthography's letters if any, else an ASCII one, else the first."""
+    found = look_alikes(ch, script)
+    if not found:
+        return None
+    for prefer in (lambda c: c.lower() in letters, str.isascii):
+        hits = [c for c in found if prefer(c)]
+        if hits:
+            return hits[0]
+    return found[0]
+
+
+def repair_token(token: str, target: str | None = None, letters: str = "") -> tuple[str, bool]:
     """Rewrite letters of a minority script that look like letters of the dominant one.
 
-    Returns the token and whether it is (still) mixed-script.
+    Returns the token and whether it is (still) mixed-script.  `letters` is the
+    orthography's alphabet; look-alikes inside it are preferred.
 
     >>> repair_token("k\N{CYRILLIC SMALL LETTER A}ma")
     ('kama', False)
@@ -134,12 +156,11 @@ def repair_token(token: str, target: str | None = None) -> tuple[str, bool]:
         return token, False
     ranked = sorted(counts.items(), key=lambda kv: (-kv[1], kv[0] != target, kv[0]))
     dominant = ranked[0][0]
-    table = _confusables()
     out, mixed = [], False
     for ch in token:
         sc = char_script(ch)
         if sc not in (dominant, COMMON, INHERITED):
-            rep = table.get((ch, dominant))
+            rep = best_look_alike(ch, dominant, letters)
             if rep is None:
                 mixed = True
             ch = rep or ch
@@ -159,7 +180,7 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
                 pieces, repaired = [], []
                 last = 0
                 for m in TOKEN.finditer(seg):
-                    tok, is_mixed = repair_token(m.group(), ctx["target"])
+                    tok, is_mixed = repair_token(m.group(), ctx["target"], ctx.get("letters", ""))
                     if tok != m.group():
                         repaired.append(f"{m.group()}→{tok}")
                     if is_mixed:
