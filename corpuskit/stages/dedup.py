@@ -36,7 +36,7 @@ class Params:
     threshold: float = param(0.7, low=0.1, high=1.0, help="Jaccard similarity at which documents are near-duplicates")
     shingle: str = param("char", choices=("char", "word"), help="n-grams of characters or of words")
     ngram: int = param(5, low=1, high=20, help="n-gram length")
-    min_shingles: int = param(5, low=1, help="shorter documents only take part in exact-duplicate removal")
+    min_shingles: int = param(5, low=1, help="documents with fewer n-grams only take part in exact-duplicate removal")
     fp_weight: float = param(0.3, low=0.0, high=1.0, help="LSH false-positive weight (false-negative weight is 1 minus it)")
     source_priority: list[str] = param([], help="source ids, most trusted first, for choosing which twin to keep")
     boilerplate_min_docs: int = param(5, low=2, help="a segment in this many documents ...")
@@ -84,6 +84,37 @@ def shingle_hashes(text: str, ngram: int, unit: str = "char") -> np.ndarray:
     return np.unique((fmix64(h) & MASK32).astype(np.uint32))
 
 
+def batch_shingle_hashes(texts: list[str], ngram: int, unit: str = "char", distinct: bool = True) -> list[np.ndarray]:
+    """``shingle_hashes`` of many texts, with the rolling hash computed once over all of them
+    (character n-grams; word n-grams go text by text).  With ``distinct=False`` repeated
+    n-grams stay in (a MinHash signature does not change) and the sort is saved."""
+    if unit != "char":
+        return [shingle_hashes(t, ngram, unit) for t in texts]
+    texts = [normalise_for_hash(t) for t in texts]
+    lengths = np.array([len(t) for t in texts], dtype=np.int64)
+    codes = np.frombuffer("".join(texts).encode("utf-32-le"), dtype=np.uint32).astype(np.uint64)
+    n = max(len(codes) - ngram + 1, 0)
+    h = np.zeros(n, dtype=np.uint64)
+    with np.errstate(over="ignore"):
+        for j in range(ngram):
+            h = h * np.uint64(1_000_003) + codes[j:j + n]
+    h = fmix64(h) & MASK32
+    starts = np.concatenate([[0], np.cumsum(lengths)[:-1]]).astype(np.int64)
+    if not distinct:  # n-grams that would run into the next text are never read
+        return [h[a:a + length - ngram + 1].astype(np.uint32) if length >= ngram else shingle_hashes(text, ngram)
+                for a, text, length in zip(starts, texts, lengths)]
+    # Tag each n-gram inside one text with the text's number in the high 32 bits; one sort
+    # then gives every text's distinct hashes in order.
+    owner = np.repeat(np.arange(len(texts), dtype=np.uint64), lengths)[:n]
+    inside = np.arange(n) <= (starts + lengths - ngram)[owner.astype(np.int64)]
+    keyed = np.sort((owner[inside] << np.uint64(32)) | h[inside])
+    keyed = keyed[np.concatenate([[True], keyed[1:] != keyed[:-1]])] if len(keyed) else keyed
+    bounds = np.searchsorted(keyed >> np.uint64(32), np.arange(len(texts) + 1, dtype=np.uint64))
+    values = (keyed & MASK32).astype(np.uint32)
+    return [values[bounds[i]:bounds[i + 1]] if length >= ngram else shingle_hashes(text, ngram)
+            for i, (text, length) in enumerate(zip(texts, lengths))]
+
+
 def permutations(num_perm: int, seed: int = SCHEME_SEED) -> tuple[np.ndarray, np.ndarray]:
     rng = np.random.default_rng(seed)
     a = rng.integers(1, 2**32, size=num_perm, dtype=np.uint64) | np.uint64(1)
@@ -98,6 +129,36 @@ def signature(hashes: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
     with np.errstate(over="ignore"):
         perm = (hashes.astype(np.uint64)[:, None] * a[None, :] + b[None, :]) & MASK32
     return perm.min(axis=0).astype(np.uint32)
+
+
+def batch_signatures(hash_sets: list[np.ndarray], a: np.ndarray, b: np.ndarray,
+                     chunk_shingles: int = 16384) -> np.ndarray:
+    """Signatures of many documents at once.
+
+    The 32-bit shingle hashes of a batch of documents are concatenated and permuted in
+    one array operation, laid out as permutations x shingles (uint32 arithmetic wraps,
+    which is the mod 2^32 of the affine hash), then reduced to per-document minima with
+    ``minimum.reduceat`` along the contiguous axis.  Rows equal ``signature(h, a, b)``.
+    Batches of about 16k shingles (8 MB at 128 permutations) measured fastest here.
+    """
+    a32, b32 = a.astype(np.uint32)[:, None], b.astype(np.uint32)[:, None]
+    sigs = np.full((len(hash_sets), len(a)), 0xFFFFFFFF, dtype=np.uint32)
+    lengths = np.array([len(h) for h in hash_sets], dtype=np.int64)
+    start = 0
+    while start < len(hash_sets):
+        stop, total = start, 0
+        while stop < len(hash_sets) and (stop == start or total + lengths[stop] <= chunk_shingles):
+            total += lengths[stop]
+            stop += 1
+        rows = np.flatnonzero(lengths[start:stop] > 0)
+        if len(rows):
+            flat = np.concatenate([hash_sets[start + r] for r in rows]).astype(np.uint32, copy=False)
+            offsets = np.concatenate([[0], np.cumsum(lengths[start:stop][rows][:-1])])
+            perm = np.multiply.outer(a32[:, 0], flat)
+            np.add(perm, b32, out=perm)
+            sigs[start + rows] = np.minimum.reduceat(perm, offsets, axis=1).T
+        start = stop
+    return sigs
 
 
 def estimate_jaccard(s1: np.ndarray, s2: np.ndarray) -> float:
@@ -115,14 +176,14 @@ def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params,
     sigs = np.zeros((len(docs), params.num_perm), dtype=np.uint32)
     n_sh = np.zeros(len(docs), dtype=np.int64)
     exact, seg_hashes, seg_offsets = [], [], [0]
-    for i, doc in enumerate(docs):
-        text = " ".join(doc["segments"])
-        h = shingle_hashes(text, params.ngram, params.shingle)
-        n_sh[i] = len(h)
-        sigs[i] = signature(h, a, b)
+    texts = [" ".join(doc["segments"]) for doc in docs]
+    hash_sets = batch_shingle_hashes(texts, params.ngram, params.shingle, distinct=False)
+    for i, (doc, text) in enumerate(zip(docs, texts)):
+        n_sh[i] = len(hash_sets[i])
         exact.append(hashlib.sha1(normalise_for_hash(text).encode()).hexdigest()[:16])
         seg_hashes.extend(int(hashlib.sha1(normalise_for_hash(s).encode()).hexdigest()[:15], 16) for s in doc["segments"])
         seg_offsets.append(len(seg_hashes))
+    sigs[:] = batch_signatures(hash_sets, a, b)
     import io
     buf = io.BytesIO()
     np.savez(buf, ids=np.array([d["id"] for d in docs], dtype=object), sigs=sigs, n_shingles=n_sh,
@@ -191,12 +252,16 @@ def candidate_pairs(sigs: np.ndarray, eligible: np.ndarray, bands: int, rows: in
     lsh = MinHashLSH(num_perm=sigs.shape[1], params=(bands, rows))
     with lsh.insertion_session() as session:
         for i in idx:
-            session.insert(int(i), LeanMinHash(seed=SCHEME_SEED, hashvalues=sigs[i], scheme="affine32"))
+            session.insert(int(i), LeanMinHash(seed=SCHEME_SEED, hashvalues=sigs[i], scheme="affine32"),
+                           check_duplication=False)
+    # Every bucket of every band holds documents that agree on that band: the same pairs as
+    # querying each document, without building its MinHash a second time.
     pairs = set()
-    for i in idx:
-        for j in lsh.query(LeanMinHash(seed=SCHEME_SEED, hashvalues=sigs[i], scheme="affine32")):
-            if j != i:
-                pairs.add((min(int(i), j), max(int(i), j)))
+    for table in lsh.hashtables:
+        for key in table.keys():
+            members = sorted(table.get(key))
+            if len(members) > 1:
+                pairs.update((members[x], members[y]) for x in range(len(members)) for y in range(x + 1, len(members)))
     return pairs
 
 

@@ -20,6 +20,7 @@ from ..recipe import param
 from ..records import jsonable
 from ..storage import atomic_write_text, file_sha256, write_gzip_lines
 from . import tokenizer as tok
+from .qualityfilter import scrub
 
 VERSION = "1"
 PACKAGES = ("corpuskit", "fasttext-wheel", "numpy", "sentencepiece", "regex", "datasketch", "pandas", "pyarrow",
@@ -127,12 +128,19 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
             for r in cache.read_ledger(stage, key).to_pylist():
                 yield r
 
+    # Removed text stays in the ledger for the team, with personal data scrubbed; reports
+    # (which are published) take examples only from redistributable sources.
+    filter_params = recipe.stages["filter"]
+    scrub_pii = filter_params.pii != "keep"
+    not_public = {s.id for s in recipe.sources if not s.redistributable}
     removal_examples: dict[str, list[str]] = defaultdict(list)
     rewrite_by_reason: Counter = Counter()
     for stage in STAGE_ORDER:
         tot = {"documents": 0, "segments_of_documents": 0, "segments": 0}
         rows = rows_of(stage) if stage != "export" else (r.as_dict() for r in export_rows)
         for r in rows:
+            if r.get("text") and scrub_pii:
+                r["text"] = scrub(r["text"], filter_params.id_patterns)[0]
             ledger_lines.append(json.dumps(r, ensure_ascii=False, sort_keys=True))
             if r["action"] == "removed" and r["unit"] == "document":
                 tot["documents"] += 1
@@ -141,7 +149,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
                 tot["segments"] += 1
             if r["action"] == "removed" and r["unit"] in ("document", "segment"):
                 ex = removal_examples[f"{stage}:{r['reason']}"]
-                if len(ex) < 3 and r.get("text") and r["reason"] not in ("personal-data",):
+                if len(ex) < 3 and r.get("text") and r["doc_id"].split(":", 1)[0] not in not_public:
                     ex.append(r["text"][:120])
             elif r["action"] == "rewritten":
                 rewrite_by_reason[f"{stage}:{r['reason']}"] += 1

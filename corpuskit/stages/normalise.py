@@ -25,7 +25,7 @@ from ..ledger import LedgerRow
 from ..recipe import param
 from ._base import drop_empty, no_context
 
-VERSION = "1"
+VERSION = "2"
 
 
 @dataclass(frozen=True)
@@ -91,12 +91,18 @@ def mojibake(text: str) -> tuple[str, str]:
     import ftfy
     from ftfy.badness import badness, is_bad
 
-    if not is_bad(text):
-        return text, ""
-    fixed, steps = ftfy.fix_and_explain(text, _safe_ftfy_config())
-    if fixed != text and badness(fixed) < badness(text):
-        return fixed, ",".join(f"{s.action}:{s.parameter}" for s in steps or [])
-    return text, ""
+    how: list[str] = []
+    # Repeat while each round makes the text more plausible, so that a second pass finds nothing
+    # (one round can turn C1 controls into cp1252 letters that read as mojibake on the next).
+    for _ in range(4):
+        if not is_bad(text):
+            break
+        fixed, steps = ftfy.fix_and_explain(text, _safe_ftfy_config())
+        if fixed == text or badness(fixed) >= badness(text):
+            break
+        text = fixed
+        how += [f"{s.action}:{s.parameter}" for s in steps or []]
+    return text, ",".join(how)
 
 
 def invisible(text: str) -> str:
@@ -127,7 +133,30 @@ def whitespace(text: str) -> str:
 
 
 def normalise_text(text: str, params: Params, apostrophe: str = "keep") -> tuple[str, list[str]]:
-    """The normalised text and the names of the steps that changed it."""
+    """The normalised text and the names of the steps that changed it.
+
+    A later step can turn repaired text into something ftfy reads as mojibake again
+    (a C1 control becomes a curly quote, then an ASCII one), so while ftfy still finds
+    the result suspicious the pass is repeated, a few times at most: the output is a
+    fixed point and a second run changes nothing.
+    """
+    text, steps = _normalise_once(text, params, apostrophe)
+    for _ in range(3):
+        if not (params.repair_mojibake and steps and _looks_bad(text)):
+            break
+        again, more = _normalise_once(text, params, apostrophe)
+        if again == text:
+            break
+        text, steps = again, steps + more
+    return text, steps
+
+
+def _looks_bad(text: str) -> bool:
+    from ftfy.badness import is_bad
+    return is_bad(text)
+
+
+def _normalise_once(text: str, params: Params, apostrophe: str) -> tuple[str, list[str]]:
     steps = []
 
     def step(name, new):

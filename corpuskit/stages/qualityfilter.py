@@ -16,7 +16,7 @@ from ..ledger import LedgerRow, remove_document
 from ..recipe import param
 from ._base import drop_empty, keep_segments
 
-VERSION = "1"
+VERSION = "2"
 
 
 @dataclass(frozen=True)
@@ -39,11 +39,12 @@ class Params:
 PII_PATTERNS = [
     ("email", regex.compile(r"[\w.+-]+@[\w-]+(?:\.[\w-]+)+")),
     ("url", regex.compile(r"""(?:https?://|www\.)\S*?(?:[?&](?:user|uid|id|phone|email|name|profile)=|/(?:u|user|users|profile|people)/)\S*""", regex.I)),
-    ("phone", regex.compile(r"""(?<![\w+])
-        (?:\+\d{1,3}[\s.-]?)?             # country code
-        (?:\(\d{1,4}\)[\s.-]?)?           # area code in brackets
-        \d{2,4}(?:[\s.-]\d{2,4}){2,4}     # groups of digits
-        (?![\w])""", regex.X)),
+    ("phone", regex.compile(r"""(?<![\w+(])(?:
+        (?:\+\d{1,3}[\s.-]?|\(\d{1,4}\)[\s.-]?)   # a country code or an area code in brackets
+        (?:\(\d{1,4}\)[\s.-]?)?
+        \d{2,4}(?:[\s.-]\d{2,4}){1,4}           # then two or more groups of digits
+      | \d{2,4}(?:[\s.-]\d{2,4}){2,4}           # or three or more groups without either
+        )(?![\w])""", regex.X)),
 ]
 URL = regex.compile(r"https?://\S+|www\.\S+")
 EMOJI = regex.compile(r"[\p{Extended_Pictographic}\p{Emoji_Modifier}\N{VARIATION SELECTOR-16}\N{ZERO WIDTH JOINER}]")
