@@ -10,6 +10,7 @@ import csv
 import io
 import json
 import sys
+import unicodedata
 from collections import Counter, defaultdict
 from dataclasses import dataclass
 from importlib import metadata
@@ -20,6 +21,7 @@ from ..recipe import param
 from ..records import jsonable
 from ..storage import atomic_write_text, file_sha256, write_gzip_lines
 from . import tokenizer as tok
+from . import transliterate as translit
 from .qualityfilter import scrub
 
 VERSION = "1"
@@ -36,6 +38,38 @@ class Params:
     alpha: float = param(0.3, low=0.0, high=1.0, help="temperature-sampling exponent across dialects")
     dialect_floor: float = param(0.1, low=0, high=1, help="warn when a dialect's share of words is below this")
     medium_floor: float = param(0.05, low=0, high=1, help="warn when a medium's share of words is below this")
+
+
+def transliteration_report(recipe, round_trip: Counter) -> list[dict]:
+    """Every rule of every table the recipe uses, with whether it reads back, then the
+    segments whose transliteration did and did not map back to the original."""
+    paths = {f"[stages.script] tables.{k}": v for k, v in recipe.stages["script"].tables.items()}
+    paths.update({f"[[sources]] id = '{s.id}' key 'transliterate'": s.transliterate for s in recipe.sources if s.transliterate})
+    seen, rows = set(), []
+    for where, path in paths.items():
+        resolved = recipe.resolve(path, where)
+        if resolved in seen:
+            continue
+        seen.add(resolved)
+        rows += translit.rule_report(translit.load_table(resolved))
+    for outcome, n in sorted(round_trip.items()):
+        rows.append({"table": "(all segments)", "line": "", "from": "", "to": "", "reversible": outcome, "reason": f"{n} segments"})
+    return rows
+
+
+def split_sizes(splits: dict[str, list[dict]]) -> list[dict]:
+    """Documents and segments per dialect and split, with each split's share of the dialect."""
+    sizes: dict[tuple[str, str], list[int]] = defaultdict(lambda: [0, 0])
+    for name, docs in splits.items():
+        for d in docs:
+            cell = sizes[(d.get("dialect") or "unknown", name)]
+            cell[0] += 1
+            cell[1] += len(d["segments"])
+    totals = Counter()
+    for (dialect, _), (n, _) in sizes.items():
+        totals[dialect] += n
+    return [{"dialect": dialect, "split": name, "documents": n, "segments": segs, "share": f"{n / totals[dialect]:.3f}"}
+            for (dialect, name), (n, segs) in sorted(sizes.items())]
 
 
 def _csv(rows: list[dict], columns: list[str] | None = None) -> str:
@@ -134,6 +168,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     scrub_pii = filter_params.pii != "keep"
     not_public = {s.id for s in recipe.sources if not s.redistributable}
     removal_examples: dict[str, list[str]] = defaultdict(list)
+    round_trip: Counter = Counter()
+    nfkc_folds: Counter = Counter()
     rewrite_by_reason: Counter = Counter()
     for stage in STAGE_ORDER:
         tot = {"documents": 0, "segments_of_documents": 0, "segments": 0}
@@ -153,6 +189,12 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
                     ex.append(r["text"][:120])
             elif r["action"] == "rewritten":
                 rewrite_by_reason[f"{stage}:{r['reason']}"] += 1
+                if r["reason"] == "transliterated":
+                    round_trip[r["detail"].rsplit("; ", 1)[-1]] += 1
+                elif r["reason"] == "normalised" and "nfkc-folded:" in r["detail"]:
+                    for item in r["detail"].split("nfkc-folded:", 1)[1].split(",", 1)[0].split():
+                        code, n = item.split("x")
+                        nfkc_folds[code] += int(n)
         ledger_totals[stage] = tot
     write_gzip_lines(out / "ledger.jsonl.gz", ledger_lines)
     ingest = reports[0].counts
@@ -171,6 +213,15 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "rewrites.csv", _csv([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
     extra = _stage_reports(runner, rep, review)
+    translit_rows = transliteration_report(recipe, round_trip)
+    if translit_rows:
+        atomic_write_text(rep / "transliteration.csv", _csv(translit_rows, ["table", "line", "from", "to", "reversible", "reason"]))
+    if nfkc_folds:
+        atomic_write_text(rep / "compatibility-folds.csv", _csv(
+            [{"code_point": c, "character": chr(int(c[2:], 16)), "folded_to": unicodedata.normalize("NFKC", chr(int(c[2:], 16))),
+              "name": unicodedata.name(chr(int(c[2:], 16)), ""), "count": n} for c, n in sorted(nfkc_folds.items())],
+            ["code_point", "character", "folded_to", "name", "count"]))
+    atomic_write_text(rep / "splits.csv", _csv(split_sizes(splits), ["dialect", "split", "documents", "segments", "share"]))
 
     summary = {
         "stages": [{"stage": s.name, **s.counts.as_dict()} for s in reports] + [{"stage": "export", **counts.as_dict()}],

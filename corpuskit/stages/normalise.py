@@ -69,6 +69,8 @@ QUOTES = str.maketrans({"\N{LEFT DOUBLE QUOTATION MARK}": '"', "\N{RIGHT DOUBLE 
                         "\N{LEFT SINGLE QUOTATION MARK}": "'", "\N{SINGLE LOW-9 QUOTATION MARK}": "'"})
 DASHES = str.maketrans({"\N{HYPHEN}": "-", "\N{NON-BREAKING HYPHEN}": "-", "\N{MINUS SIGN}": "-",
                         "\N{FIGURE DASH}": "-"})
+_HAS_QUOTE = regex.compile("[%s]" % regex.escape("".join(chr(c) for c in QUOTES)))
+_HAS_DASH = regex.compile("[%s]" % regex.escape("".join(chr(c) for c in DASHES)))
 _OTHER_DIGIT = regex.compile(r"[\p{Nd}--[0-9]]", regex.V1)
 _SPACES = regex.compile(r"[\p{Zs}\t]+")
 
@@ -85,8 +87,8 @@ def _safe_ftfy_config():
 def mojibake(text: str) -> tuple[str, str]:
     """Repair mojibake where ftfy's badness measure says the result is more plausible.
 
-    >>> mojibake("ŋɔ́ bÉ›")[0]
-    'ŋɔ́ bɛ'
+    >>> mojibake("bÉ›lÉ› kamÉ›")[0]
+    'bɛlɛ kamɛ'
     """
     import ftfy
     from ftfy.badness import badness, is_bad
@@ -105,7 +107,13 @@ def mojibake(text: str) -> tuple[str, str]:
     return text, ",".join(how)
 
 
+_INVISIBLE_OR_CONTROL = regex.compile(r"[%s%s\p{Cc}--[\t\n]]" % ("".join(sorted(INVISIBLE)), JOINERS), regex.V1)
+
+
 def invisible(text: str) -> str:
+    """Remove invisible and control characters; keep ZWJ/ZWNJ next to a script that uses them."""
+    if not _INVISIBLE_OR_CONTROL.search(text):
+        return text
     out = []
     for i, ch in enumerate(text):
         if ch in INVISIBLE:
@@ -178,11 +186,13 @@ def _normalise_once(text: str, params: Params, apostrophe: str) -> tuple[str, li
         step("nfc", unicodedata.normalize("NFC", text))
     # Quotes first: a mapped quote between letters is then an apostrophe, as on the next pass.
     if params.quotes == "ascii":
-        step("quotes", text.translate(QUOTES))
+        if _HAS_QUOTE.search(text):
+            step("quotes", text.translate(QUOTES))
     if apostrophe in APOSTROPHE_FORM:
         step("apostrophe", _IN_WORD_APOSTROPHE.sub(APOSTROPHE_FORM[apostrophe], text))
     if params.dashes == "hyphen":
-        step("dashes", text.translate(DASHES))
+        if _HAS_DASH.search(text):
+            step("dashes", text.translate(DASHES))
     if params.digits == "ascii":
         step("digits", digits(text))
     step("whitespace", whitespace(text))

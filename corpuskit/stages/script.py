@@ -23,7 +23,7 @@ from ..recipe import param
 from ..storage import file_sha256, stable_hash
 from . import transliterate as translit
 
-VERSION = "2"
+VERSION = "3"
 COMMON, INHERITED, UNKNOWN = "Zyyy", "Zinh", "Zzzz"
 TOKEN = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{MODIFIER LETTER APOSTROPHE}\p{Nd}]+")
 
@@ -171,6 +171,7 @@ def repair_token(token: str, target: str | None = None, letters: str = "") -> tu
 def apply(docs: list[dict], params: Params, ctx: dict | None):
     ctx = ctx or {"target": "Latn", "tables": {}, "by_source": {}}
     rows: list[LedgerRow] = []
+    inverses: dict[int, translit.Table] = {}
     for doc in docs:
         seg_scripts, mixed_tokens, changed_doc = [], [], False
         source_table = ctx["by_source"].get(doc["source"])
@@ -196,8 +197,12 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
             if table is not None and (source_table is not None or script != ctx["target"]):
                 out = unicodedata.normalize("NFC", translit.apply_table(table, new))
                 if out != new:
+                    if id(table) not in inverses:
+                        inverses[id(table)] = translit.inverse_table(table)
+                    back = "round trip ok" if translit.round_trips(inverses[id(table)], new, out) else "round trip differs"
                     rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
-                                          "transliterated", f"{table.source}→{table.target} ({table.name})", None, new[:500]))
+                                          "transliterated", f"{table.source}→{table.target} ({table.name}); {back}",
+                                          None, new[:500]))
                     new = out
                     changed_doc = True
                 script = text_script(new)

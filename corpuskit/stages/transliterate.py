@@ -25,7 +25,8 @@ import regex
 
 from ..errors import RecipeError
 
-__all__ = ["Table", "Rule", "load_table", "parse_table", "apply_table", "irreversible_rules"]
+__all__ = ["Table", "Rule", "load_table", "parse_table", "apply_table", "irreversible_rules", "inverse_table",
+           "round_trips", "rule_report"]
 
 HEADER = "# corpuskit transliteration table 1"
 _LETTER = regex.compile(r"[\p{L}\p{M}]")
@@ -165,3 +166,28 @@ def irreversible_rules(table: Table) -> list[tuple[Rule, str]]:
         elif len(r.dst) > 1 and any(r.dst.lower()[:k] in single and r.dst.lower()[k:] in single for k in range(1, len(r.dst))):
             problems.append((r, f"'{r.dst}' can also be read as two letters"))
     return problems
+
+
+def inverse_table(table: Table) -> Table:
+    """The table read backwards (contexts dropped): each output maps to the first rule's source."""
+    inv = Table(f"{table.name} (inverse)", table.target, table.source)
+    for r in table.rules:
+        if r.dst and not any(x.src == r.dst.lower() for x in inv.rules):
+            inv.rules.append(Rule(r.dst.lower(), r.src, line=r.line))
+    for r in sorted(inv.rules, key=lambda r: -len(r.src)):
+        inv.by_first.setdefault(r.src[0], []).append(r)
+    return inv
+
+
+def round_trips(inverse: Table, source_text: str, output: str) -> bool:
+    """Whether the output maps back to the source text (compared after NFC and case folding)."""
+    import unicodedata
+    back = unicodedata.normalize("NFC", apply_table(inverse, unicodedata.normalize("NFD", output))).casefold()
+    return back == unicodedata.normalize("NFC", source_text).casefold()
+
+
+def rule_report(table: Table) -> list[dict]:
+    """One row per rule: whether its output can be read back to its source, and why not."""
+    why = {r.line: reason for r, reason in irreversible_rules(table)}
+    return [{"table": table.name, "line": r.line, "from": r.src, "to": r.dst,
+             "reversible": "no" if r.line in why else "yes", "reason": why.get(r.line, "")} for r in table.rules]

@@ -1,0 +1,135 @@
+"""The normalise and script stages on constructed cases: each mapping, the reports, idempotence."""
+import unicodedata
+
+import pytest
+from hypothesis import given, settings, strategies as st
+
+from corpuskit.stages import transliterate as translit
+from corpuskit.stages.normalise import Params, invisible, normalise_text
+from corpuskit.stages.script import apply as script_apply, repair_token, token_scripts
+
+CYR_A, CYR_KA = "\N{CYRILLIC SMALL LETTER A}", "\N{CYRILLIC SMALL LETTER KA}"
+
+
+def test_nfkc_on_request_reports_each_folded_character():
+    text, steps = normalise_text("\N{LATIN SMALL LIGATURE FI}na \N{FULLWIDTH DIGIT TWO}", Params(form="NFKC"))
+    assert text == "fina 2"
+    assert "nfkc-folded:U+FB01x1 U+FF12x1" in steps
+
+
+def test_nfc_is_the_default_and_keeps_compatibility_characters():
+    text, _ = normalise_text("\N{LATIN SMALL LIGATURE FI}na ka\u0301", Params())
+    assert text == "\N{LATIN SMALL LIGATURE FI}na k\N{LATIN SMALL LETTER A WITH ACUTE}"
+
+
+@pytest.mark.parametrize("raw,expected", [
+    ("ŋɔ\u200bbɛ", "ŋɔbɛ"),                        # zero-width space
+    ("ka\u00adma", "kama"),                         # soft hyphen
+    ("\ufeffkama", "kama"),                         # stray byte-order mark
+    ("\u202bkama\u202c", "kama"),                   # bidi embedding and pop
+    ("ka\x85ma\x07", "kama"),                       # C1 and C0 controls
+    ("ka\u200dma", "kama"),                         # a joiner between Latin letters does nothing
+    ("\u0915\u094d\u200d\u0937", "\u0915\u094d\u200d\u0937"),  # ... but is kept in Deva (ISO 15924)
+    ("\U0001F469\u200d\U0001F33E", "\U0001F469\u200d\U0001F33E"),  # and inside an emoji sequence
+])
+def test_invisible_and_control_characters(raw, expected):
+    assert invisible(raw) == expected
+
+
+@pytest.mark.parametrize("choice,expected", [
+    ("modifier", "ŋa\N{MODIFIER LETTER APOSTROPHE}ɔ"), ("ascii", "ŋa'ɔ"), ("keep", "ŋa\N{RIGHT SINGLE QUOTATION MARK}ɔ"),
+])
+def test_apostrophe_is_a_per_language_choice(choice, expected):
+    assert normalise_text("ŋa\N{RIGHT SINGLE QUOTATION MARK}ɔ", Params(), choice)[0] == expected
+
+
+def test_quotes_dashes_digits_and_spaces():
+    text, _ = normalise_text("\u201cKama\u201d \u2010 \u0663\u0664  tabu\u00a0nɔ", Params())
+    assert text == '"Kama" - 34 tabu nɔ'
+
+
+def test_mojibake_is_repaired_and_named():
+    # UTF-8 read as Windows-1252: the usual wrong code page (ftfy's own documentation example kind).
+    text, steps = normalise_text("bɛlɛ kamɛ".encode("utf-8").decode("windows-1252"), Params())
+    assert text == "bɛlɛ kamɛ" and any(s.startswith("mojibake") for s in steps)
+
+
+def test_plausible_text_is_left_alone():
+    assert normalise_text("Ŋɔ́ bɛlɛ, kamɛ tabu.", Params()) == ("Ŋɔ́ bɛlɛ, kamɛ tabu.", [])
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.text(alphabet=st.characters(codec="utf-8"), max_size=40), st.sampled_from(["NFC", "NFKC"]))
+def test_normalise_is_idempotent_in_both_forms(text, form):
+    once, _ = normalise_text(text, Params(form=form), "modifier")
+    assert normalise_text(once, Params(form=form), "modifier")[0] == once
+
+
+# -- confusables -------------------------------------------------------------------------------
+
+def test_cyrillic_letter_in_a_latin_word_prefers_the_orthographys_letter():
+    # UTS #39 lists small ka only as LATIN SMALL LETTER KRA; its capital is listed as K.
+    assert repair_token(f"{CYR_KA}ɛbo", "Latn", "abdegiklmnostuwyɛɔŋ") == ("kɛbo", False)
+    assert repair_token(f"k{CYR_A}ma", "Latn") == ("kama", False)
+
+
+def test_latin_letter_in_a_cyrillic_word_goes_the_other_way():
+    word = "\N{CYRILLIC SMALL LETTER KA}a\N{CYRILLIC SMALL LETTER EM}\N{CYRILLIC SMALL LETTER A}"
+    fixed, mixed = repair_token(word, "Latn")
+    assert fixed == "\N{CYRILLIC SMALL LETTER KA}\N{CYRILLIC SMALL LETTER A}\N{CYRILLIC SMALL LETTER EM}\N{CYRILLIC SMALL LETTER A}"
+    assert not mixed and set(token_scripts(fixed)) == {"Cyrl"}
+
+
+def test_genuinely_mixed_token_is_reported_not_changed():
+    word = "kam\N{CYRILLIC SMALL LETTER ZHE}a"  # zhe has no Latin look-alike
+    assert repair_token(word, "Latn") == (word, True)
+    doc = {"id": "s:1", "source": "s", "segments": [f"{word} tabu"], "seg_index": [0], "meta": "{}"}
+    out, rows = script_apply([doc], type("P", (), {"repair_confusables": True, "tables": {}})(), None)
+    assert out[0]["segments"] == [f"{word} tabu"] and "mixed_script_tokens" in out[0]["meta"] and not rows
+
+
+# -- transliteration tables --------------------------------------------------------------------
+
+TABLE = """# corpuskit transliteration table 1
+# name: test
+# from: Cyrl
+# to: Latn
+# class V = аеиоу
+нг	ŋ
+е	je	^
+е	je	after:V
+е	e
+и	i
+а	a
+н	n
+г	g
+к	k
+ә	a
+"""
+
+
+def test_table_contexts_longest_match_and_case():
+    t = translit.parse_table(TABLE)
+    assert translit.apply_table(t, "ен ие не") == "jen ije ne"
+    assert translit.apply_table(t, "нга Нга НГА") == "ŋa Ŋa ŊA"
+
+
+def test_round_trip_flags_rules_that_cannot_be_read_back():
+    t = translit.parse_table(TABLE)
+    report = {(r["from"], r["to"]): r for r in translit.rule_report(t)}
+    assert report[("ә", "a")]["reversible"] == "no"    # 'а' also gives 'a'
+    assert report[("а", "a")]["reversible"] == "no"
+    assert report[("нг", "ŋ")]["reversible"] == "yes"
+    inverse = translit.inverse_table(t)
+    assert translit.round_trips(inverse, "кина", translit.apply_table(t, "кина"))
+    assert not translit.round_trips(inverse, "кәна", translit.apply_table(t, "кәна"))
+
+
+def test_bad_table_line_names_the_line():
+    with pytest.raises(Exception, match="line 5"):
+        translit.parse_table("# corpuskit transliteration table 1\n# from: Cyrl\n# to: Latn\nа\ta\nб")
+
+
+def test_transliteration_keeps_nfc():
+    t = translit.parse_table(TABLE)
+    assert unicodedata.is_normalized("NFC", unicodedata.normalize("NFC", translit.apply_table(t, "ка\u0301")))
