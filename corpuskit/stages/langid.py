@@ -18,6 +18,7 @@ import random
 import tempfile
 from collections import Counter
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -67,8 +68,7 @@ def is_target(label: str, language: str) -> bool:
 
 
 def prepare_line(text: str) -> str:
-    """The same preprocessing for training and prediction: one line, case-folded, ASCII spaces."""
-    text = text.encode("utf-8", "replace").decode("utf-8")
+    """The same preprocessing for training and prediction: one line, case-folded, single spaces."""
     return " ".join(text.casefold().split())
 
 
@@ -130,19 +130,38 @@ def predict(model, lines: list[str]) -> list[dict[str, float]]:
         return []
     # One call per line: multilinePredict in fasttext-wheel 0.9.2 repeats the first
     # probability for every label (measured here), and predict() fails under numpy 2.
-    n = len(model.get_labels())
+    n = _label_count(model)
     f = model.f
     return [{lab[9:]: min(float(p), 1.0) for p, lab in f.predict(prepare_line(x) + "\n", n, 0.0, "strict")}
             for x in lines]
 
 
+_LABELS: dict[tuple[int, str], tuple[int, frozenset[str]]] = {}
+
+
+def _labels(model, language: str) -> tuple[int, frozenset[str]]:
+    """The model's number of labels and its target-language labels, looked up once per model."""
+    key = (id(model), language)
+    if key not in _LABELS:
+        labels = model.get_labels()
+        _LABELS[key] = (len(labels), frozenset(lab for lab in labels if is_target(lab[9:], language)))
+    return _LABELS[key]
+
+
+def _label_count(model) -> int:
+    return _labels(model, "")[0]
+
+
 def target_scores(model, lines: list[str], language: str) -> tuple[np.ndarray, list[str]]:
-    """P(target language) per line and the best label."""
+    """P(target language) per line and the most probable label."""
+    n, targets = _labels(model, language)
+    fasttext_predict = model.f.predict
     out, best = [], []
-    for probs in predict(model, lines):
-        out.append(sum(p for lab, p in probs.items() if is_target(lab, language)))
-        best.append(max(probs.items(), key=lambda kv: (kv[1], kv[0]))[0])
-    return np.array(out, dtype=float), best
+    for x in lines:
+        ranked = fasttext_predict(" ".join(x.casefold().split()) + "\n", n, 0.0, "strict")  # prepare_line, inlined
+        out.append(sum([p for p, lab in ranked if lab in targets]))
+        best.append(ranked[0][1][9:] if ranked else UND)
+    return np.minimum(np.array(out, dtype=float), 1.0), best
 
 
 def cross_validate(examples: list[tuple[str, str]], params: Params, language: str, workdir: Path) -> dict:
@@ -242,12 +261,20 @@ def build_context(recipe, params, cache, key):
             "scripts": sorted(set(scripts)), "report": report_name}
 
 
+@lru_cache(maxsize=32)
+def _enough_letters(n: int):
+    return regex.compile(r"(?:\P{L}*?\p{L}){%d}" % n)
+
+
 def undetermined(text: str, min_letters: int) -> bool:
-    return len(LETTER.findall(URL.sub("", text))) < min_letters
+    """Too few letters (outside URLs and e-mail addresses) for the classifier to judge."""
+    if "://" in text or "www." in text or "@" in text:
+        text = URL.sub("", text)
+    return min_letters > 0 and not _enough_letters(min_letters).match(text)
 
 
-def label_segments(texts: list[str], scripts: list[str] | None, ctx: dict, params: Params, model) -> tuple[list[str], list[float]]:
-    """A label (target language tag, another label or 'und') and P(target) per segment."""
+def _undecided(texts: list[str], scripts: list[str] | None, ctx: dict, params: Params):
+    """Labels and scores decided without the classifier, and the positions the classifier must see."""
     labels: list[str] = [UND] * len(texts)
     scores: list[float] = [float("nan")] * len(texts)
     ask = []
@@ -259,33 +286,61 @@ def label_segments(texts: list[str], scripts: list[str] | None, ctx: dict, param
             labels[i], scores[i] = f"script:{sc}", 0.0
             continue
         ask.append(i)
-    s, best = target_scores(model, [texts[i] for i in ask], ctx["language"])
-    for i, sc, b in zip(ask, s, best):
-        scores[i] = float(sc)
-        labels[i] = ctx["language"] if sc >= ctx["threshold"] else (b if not is_target(b, ctx["language"]) else "other")
-    # Undetermined segments follow their neighbours: the previous determined one, else the next.
-    resolved = list(labels)
+    return labels, scores, ask
+
+
+def _follow_neighbours(labels: list[str]) -> list[str]:
+    """Undetermined segments take the previous determined label, else the next one."""
+    resolved, last = list(labels), None
     for i, lab in enumerate(labels):
-        if lab == UND:
-            prev = next((labels[j] for j in range(i - 1, -1, -1) if labels[j] != UND), None)
-            nxt = next((labels[j] for j in range(i + 1, len(labels)) if labels[j] != UND), None)
-            resolved[i] = prev or nxt or UND
-    return resolved, scores
+        if lab != UND:
+            last = lab
+        elif last is not None:
+            resolved[i] = last
+    nxt = None
+    for i in range(len(labels) - 1, -1, -1):
+        if labels[i] != UND:
+            nxt = labels[i]
+        elif resolved[i] == UND and nxt is not None:
+            resolved[i] = nxt
+    return resolved
+
+
+def label_documents(docs: list[dict], ctx: dict, params: Params, model) -> list[tuple[list[str], list[float]]]:
+    """A label (target language tag, another label, 'script:XXXX' or 'und') and P(target) per
+    segment of each document; the classifier sees every document's segments in one pass."""
+    plans = [_undecided(d["segments"], d.get("seg_script"), ctx, params) for d in docs]
+    lines = [d["segments"][i] for d, (_, _, ask) in zip(docs, plans) for i in ask]
+    s, best = target_scores(model, lines, ctx["language"])
+    k, language, threshold = 0, ctx["language"], ctx["threshold"]
+    out = []
+    for labels, scores, ask in plans:
+        for i in ask:
+            scores[i] = float(s[k])
+            labels[i] = language if s[k] >= threshold else (best[k] if not is_target(best[k], language) else "other")
+            k += 1
+        out.append((_follow_neighbours(labels), scores))
+    return out
+
+
+def label_segments(texts: list[str], scripts: list[str] | None, ctx: dict, params: Params, model) -> tuple[list[str], list[float]]:
+    """``label_documents`` for one document's segments."""
+    return label_documents([{"segments": texts, "seg_script": scripts}], ctx, params, model)[0]
 
 
 def apply(docs: list[dict], params: Params, ctx: dict):
     rows: list[LedgerRow] = []
     model = load_model(ctx["model"])
     out = []
-    for doc in docs:
-        labels, scores = label_segments(doc["segments"], doc.get("seg_script"), ctx, params, model)
-        target = [lab in (ctx["language"], UND) for lab in labels]
+    language = ctx["language"]
+    for doc, (labels, scores) in zip(docs, label_documents(docs, ctx, params, model)):
+        target = [lab == language or lab == UND for lab in labels]
         determined = [lab for lab in labels if lab != UND]
-        share = sum(1 for lab in determined if lab == ctx["language"]) / len(determined) if determined else 1.0
-        doc["seg_lang"] = [lab if lab != UND else UND for lab in labels]
+        share = sum(1 for lab in determined if lab == language) / len(determined) if determined else 1.0
+        doc["seg_lang"] = labels
         doc["seg_score"] = [None if s != s else round(s, 4) for s in scores]
-        valid = [s for s, lab in zip(scores, labels) if s == s and lab == ctx["language"]]
-        doc["langid_score"] = round(float(np.mean(valid)), 4) if valid else None
+        valid = [s for s, lab in zip(scores, labels) if s == s and lab == language]
+        doc["langid_score"] = round(sum(valid) / len(valid), 4) if valid else None
         if share < params.min_share:
             rows.append(remove_document("langid", doc, "not-target-language",
                                         f"target-language share {share:.2f} < {params.min_share}; labels "
@@ -296,7 +351,7 @@ def apply(docs: list[dict], params: Params, ctx: dict):
             reasons = [None if t else f"lang:{lab}" for t, lab in zip(target, labels)]
             details = ["" if t else f"P(target)={s:.2f}" if s == s else "" for t, s in zip(target, scores)]
             keep_segments("langid", doc, target, reasons, details, rows)
-        doc["lang"] = ctx["language"]
+        doc["lang"] = language
         out.append(doc)
     return out, rows
 
