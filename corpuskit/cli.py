@@ -64,6 +64,15 @@ def _summary(result) -> None:
         t.add_row(s.name, str(c.docs_in), str(c.docs_out), str(c.segs_in), str(c.segs_out), str(s.computed),
                   str(s.reused), removed or "-")
     out.print(t)
+    sources = (result.manifest or {}).get("sources") or []
+    if sources:
+        ts = Table(title="Sources", title_justify="left")
+        for col in ("source", "medium", "dialect", "output", "documents in", "documents kept", "segments in", "segments kept"):
+            ts.add_column(col, justify="right" if col.startswith(("documents", "segments")) else "left")
+        for row in sources:
+            ts.add_row(*(str(row[c]) for c in ("source", "medium", "dialect", "output", "documents in", "documents kept",
+                                               "segments in", "segments kept")))
+        out.print(ts)
     if result.conservation:
         cd, cs = result.conservation["documents"], result.conservation["segments"]
         ok = cd["holds"] and cs["holds"]

@@ -64,6 +64,15 @@ def _quiet_progress(name: str, total: int):
     yield lambda n: None
 
 
+def remove_stale_temporaries(out: Path) -> int:
+    """Delete half-written files a killed run left behind (``.<name>.<random>.tmp``, see storage);
+    only called while holding the folder's lock, so no live writer owns them."""
+    stale = [p for p in out.rglob(".*.tmp") if p.is_file()]
+    for p in stale:
+        p.unlink(missing_ok=True)
+    return len(stale)
+
+
 class OutputLock:
     """An exclusive lock on the output folder; the kernel drops it if the holder dies."""
 
@@ -83,6 +92,7 @@ class OutputLock:
                               "wait for it to finish or choose another --out.") from None
         os.ftruncate(self._fd, 0)
         os.write(self._fd, str(os.getpid()).encode())
+        remove_stale_temporaries(self.path.parent)
         return self
 
     def __exit__(self, *exc: Any) -> None:

@@ -91,23 +91,6 @@ def test_determinism_and_cache(tmp_path):
     del b
 
 
-def test_kill_and_resume(tmp_path):
-    recipe = copy_demo(tmp_path)
-    ref = tmp_path / "ref"
-    run(recipe, ref, workers=1)
-    out = tmp_path / "killed"
-    for delay in (1.5, 3.0):
-        proc = subprocess.Popen([sys.executable, "-m", "corpuskit.cli", "run", str(recipe), "--out", str(out),
-                                 "--workers", "1", "--no-progress"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-                                cwd=tmp_path)
-        time.sleep(delay)
-        proc.send_signal(signal.SIGKILL)
-        proc.wait()
-    run(recipe, out, workers=1)
-    assert contract_files(out) == contract_files(ref)
-    assert not list(out.rglob("*.tmp"))
-
-
 def test_second_run_on_same_folder_refused(tmp_path):
     from corpuskit.errors import LockedError
     from corpuskit.runner import OutputLock
@@ -166,3 +149,57 @@ def test_conservation_holds_for_random_drop_and_rewrite(docs_segments, seed):
     _check_partition("t", "k", n_in, segs_in, out, rows)  # raises if anything is unaccounted for
     c = count_partition([], out, rows)
     assert n_in == c.docs_out + sum(1 for r in rows if r.unit == "document")
+
+
+def test_per_source_counts_add_up_to_the_ingested_totals(demo_run):
+    rows = demo_run.manifest["sources"]
+    cons = demo_run.conservation
+    assert {r["source"] for r in rows} == {"radio-vtt", "radio-srt", "booklets", "group-chat", "sentence-sheet",
+                                          "valley-radio-web", "river-hymns"}
+    assert sum(r["documents in"] for r in rows) == cons["documents"]["in"]
+    assert sum(r["segments in"] for r in rows) == cons["segments"]["in"]
+    assert sum(r["documents kept"] for r in rows) == cons["documents"]["kept"]
+    assert [r["output"] for r in rows if r["source"] == "group-chat"] == ["restricted"]
+
+
+KILLER = """
+import os, re, signal, sys
+from corpuskit import storage
+pattern, hit = re.compile(sys.argv[1]), int(sys.argv[2])
+seen = {"n": 0}
+real_replace = storage.os.replace
+
+def replace(src, dst):
+    if pattern.search(str(dst)):
+        seen["n"] += 1
+        if seen["n"] == hit:  # the temporary file is written; die before it takes its name
+            os.kill(os.getpid(), signal.SIGKILL)
+    return real_replace(src, dst)
+
+storage.os.replace = replace
+from corpuskit.cli import app
+sys.argv = ["corpuskit"] + sys.argv[3:]
+app()
+"""
+
+# (file the run is about to publish, which one of them): one point in each kind of stage.
+KILL_POINTS = [
+    (r"/ingest/.*\.parquet$", 3),           # an ingest partition's data, before its ledger and marker
+    (r"/clean/.*\.ledger\.parquet$", 2),    # a map stage's ledger, data already written
+    (r"/langid/.*\.json$", 2),              # a langid partition's marker (all its files written)
+    (r"/dedup/sig-.*\.npz$", 1),            # the signatures of the global near-duplicate stage
+    (r"/corpus/corpus-00000\.jsonl\.gz$", 1),  # the first public shard of the export
+    (r"/manifest\.json$", 1),               # the very last file
+]
+
+
+def test_killed_at_chosen_points_resumes_to_identical_output(tmp_path, demo_run):
+    recipe = copy_demo(tmp_path)
+    out = tmp_path / "killed"
+    for pattern, hit in KILL_POINTS:
+        proc = subprocess.run([sys.executable, "-c", KILLER, pattern, str(hit), "run", str(recipe), "--out", str(out),
+                               "--workers", "1", "--no-progress"], capture_output=True, cwd=tmp_path)
+        assert proc.returncode == -signal.SIGKILL, (pattern, proc.stderr[-400:])
+    run(recipe, out, workers=1)
+    assert contract_files(out) == contract_files(demo_run.out)
+    assert not list(out.rglob("*.tmp"))

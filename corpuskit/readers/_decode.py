@@ -59,8 +59,12 @@ class TextFile:
             while pos:
                 out += d.decompress(pos, limit + 1 - len(out))
                 if len(out) > limit:
-                    raise DataError(f"{self.rel}: gzip expands beyond {MAX_EXPANSION}x its size "
-                                    f"({limit} bytes); unpack it yourself if it is genuine.")
+                    message = (f"{self.rel}: gzip expands beyond {MAX_EXPANSION}x its size ({limit} bytes); "
+                               "skipped; unpack it yourself if it is genuine")
+                    self.issues.append(LedgerRow("ingest", "file", "removed", self.file_id, -1, 0,
+                                                 "gzip-expansion-limit", message))
+                    self.warnings.append(message)
+                    return b""
                 pos = d.unconsumed_tail
                 if d.eof:
                     break
@@ -100,8 +104,9 @@ class TextFile:
         head = data[:8192]
         if not head:
             return False
+        # Text has almost no control characters; a stray NUL or two is kept (with a ledger row).
         controls = sum(1 for b in head if b < 9 or 13 < b < 32)
-        return controls > len(head) * 0.3
+        return controls > len(head) * 0.1 or head.count(0) > max(2, len(head) // 100)
 
     def lines(self) -> Iterator[tuple[int, str]]:
         """(1-based line number, text without the line break) for every line."""

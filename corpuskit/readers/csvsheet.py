@@ -40,14 +40,16 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
         i += 1
         if not line.strip():
             continue
-        record_text, first = line, n
+        record_text, first, next_i = line, n, i
         # A quoted field may span lines; take lines until the quotes balance (bounded).
-        while record_text.count('"') % 2 and i < len(lines) and i - first < 50:
+        while record_text.count('"') % 2 and i < len(lines) and i - next_i < 50:
             record_text += "\n" + lines[i][1]
             i += 1
         try:
             row = next(csv.reader([record_text], delimiter=delim, strict=True))
         except csv.Error as exc:
+            if i > next_i:  # an unbalanced quote swallowed later rows: skip only this line, read on
+                i, record_text = next_i, line
             tf.issues.append(LedgerRow("ingest", "segment", "removed", f"{tf.file_id}:{first}", first, 1,
                                        "malformed-csv", f"{tf.rel} line {first}: {exc}; row skipped", None,
                                        record_text[:500]))

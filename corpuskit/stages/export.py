@@ -57,6 +57,22 @@ def transliteration_report(recipe, round_trip: Counter) -> list[dict]:
     return rows
 
 
+SOURCE_COLUMNS = ["source", "medium", "dialect", "output", "documents in", "documents kept", "segments in", "segments kept"]
+
+
+def source_counts(recipe, by_source: dict[str, Counter]) -> list[dict]:
+    """Per source: what came in (kept plus removed, as the ledger counts it) and what was kept."""
+    specs = {s.id: s for s in recipe.sources}
+    rows = []
+    for sid, c in by_source.items():
+        spec = specs.get(sid)
+        rows.append({"source": sid, "medium": spec.medium if spec else "", "dialect": (spec.dialect if spec else "") or "mixed",
+                     "output": "public" if spec is None or spec.redistributable else "restricted",
+                     "documents in": c["documents kept"] + c["documents removed"], "documents kept": c["documents kept"],
+                     "segments in": c["segments kept"] + c["segments removed"], "segments kept": c["segments kept"]})
+    return rows
+
+
 def split_sizes(splits: dict[str, list[dict]]) -> list[dict]:
     """Documents and segments per dialect and split, with each split's share of the dialect."""
     sizes: dict[tuple[str, str], list[int]] = defaultdict(lambda: [0, 0])
@@ -104,6 +120,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     stats = balance.Accumulator()
     script_inventory = balance.ScriptInventory()
     kept_docs = kept_segs = 0
+    by_source: dict[str, Counter] = {s.id: Counter() for s in recipe.sources}
     review = []
     counts = Counts()
     for p in parts:
@@ -117,6 +134,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
                 continue
             kept_docs += 1
             kept_segs += len(d["segments"])
+            by_source[d["source"]]["documents kept"] += 1
+            by_source[d["source"]]["segments kept"] += len(d["segments"])
             counts.docs_out += 1
             counts.segs_out += len(d["segments"])
             stats.add(d)
@@ -178,11 +197,15 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
             if r.get("text") and scrub_pii:
                 r["text"] = scrub(r["text"], filter_params.id_patterns)[0]
             ledger_lines.append(json.dumps(r, ensure_ascii=False, sort_keys=True))
+            source_tally = by_source.setdefault(r["doc_id"].split(":", 1)[0], Counter())
             if r["action"] == "removed" and r["unit"] == "document":
                 tot["documents"] += 1
                 tot["segments_of_documents"] += r["segments"]
+                source_tally["documents removed"] += 1
+                source_tally["segments removed"] += r["segments"]
             elif r["action"] == "removed" and r["unit"] == "segment":
                 tot["segments"] += 1
+                source_tally["segments removed"] += 1
             if r["action"] == "removed" and r["unit"] in ("document", "segment"):
                 ex = removal_examples[f"{stage}:{r['reason']}"]
                 if len(ex) < 3 and r.get("text") and r["doc_id"].split(":", 1)[0] not in not_public:
@@ -213,6 +236,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "rewrites.csv", _csv([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
     extra = _stage_reports(runner, rep, review)
+    source_rows = source_counts(recipe, by_source)
+    atomic_write_text(rep / "sources.csv", _csv(source_rows, SOURCE_COLUMNS))
     translit_rows = transliteration_report(recipe, round_trip)
     if translit_rows:
         atomic_write_text(rep / "transliteration.csv", _csv(translit_rows, ["table", "line", "from", "to", "reversible", "reason"]))
@@ -244,6 +269,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         "tokenizer": tok_info.get("summary", {}), "dedup": extra.get("dedup_params", {}),
         "langid": extra.get("langid_summary", {}),
         "documents": {"public": len(public), "restricted": len(restricted)},
+        "sources": source_rows,
         "datasheet_unanswered": unanswered,
     }
     files = sorted(p for p in out.rglob("*") if p.is_file() and _in_contract(p.relative_to(out)))
