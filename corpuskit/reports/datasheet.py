@@ -36,6 +36,9 @@ CAUTIONS = """\
   benefit, authority to control, responsibility and ethics, as in the CARE
   principles for Indigenous data governance). Material the community
   restricts must stay restricted, whatever a licence says.
+- `ledger.jsonl.gz` keeps the text of removed segments (personal data
+  scrubbed) from every source, restricted ones included, so that removals
+  can be checked: treat it as the team's working file, not for publication.
 - Local law on personal data and on cultural heritage, and the community's
   own rules, take precedence over anything in this datasheet or in the tool.
 """
@@ -62,6 +65,10 @@ def unanswered(answers: dict) -> list[str]:
 def _answer(answers: dict, sec: str, q: str) -> str:
     value = str(answers.get(sec, {}).get(q, "")).strip()
     return value or "_Not answered yet (add it to the answers file)._"
+
+
+def _fmt(x) -> str:
+    return f"{x:.3f}" if isinstance(x, float) else str(x)
 
 
 def _table(rows: list[dict], columns: list[str]) -> str:
@@ -125,9 +132,11 @@ def render(recipe, facts: dict) -> tuple[str, list[str]]:
             lid = facts["extra"].get("langid_summary")
             if lid:
                 th = lid.get("threshold") or {}
-                out.append(f"Language identification: fastText from seed text; cross-validated accuracy "
-                           f"{lid.get('accuracy')}, macro-F1 {lid.get('macro_f1')}; threshold {th.get('value')} "
-                           f"(precision {th.get('precision')}, recall {th.get('recall')} on held-out seed folds).\n")
+                out.append(f"Language identification: fastText from seed text; {lid.get('folds', 5)}-fold cross-validated "
+                           f"accuracy {_fmt(lid.get('accuracy'))}, macro-F1 {_fmt(lid.get('macro_f1'))} over all seed labels "
+                           f"(dialect labels included); target-language threshold {_fmt(th.get('value'))} "
+                           f"(precision {_fmt(th.get('precision'))}, recall {_fmt(th.get('recall'))} on held-out seed folds). "
+                           "See `reports/langid-classes.csv` and `reports/langid-confusion.csv`.\n")
             dd = facts["extra"].get("dedup_params")
             if dd:
                 out.append(f"Near-duplicates: MinHash ({dd['num_perm']} permutations, {dd['shingle']}), LSH with "

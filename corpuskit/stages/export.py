@@ -57,6 +57,14 @@ def transliteration_report(recipe, round_trip: Counter) -> list[dict]:
     return rows
 
 
+def destination(doc: dict, restricted_policy: str) -> str:
+    """'public', 'restricted' or 'excluded': only a document whose consent scope and licence
+    both allow redistribution is public (the flag is set at ingest from the source's metadata)."""
+    if doc["redistributable"] is True:
+        return "public"
+    return "excluded" if restricted_policy == "exclude" else "restricted"
+
+
 SOURCE_COLUMNS = ["source", "medium", "dialect", "output", "documents in", "documents kept", "segments in", "segments kept"]
 
 
@@ -128,7 +136,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         for d in docs:
             counts.docs_in += 1
             counts.segs_in += len(d["segments"])
-            if not d["redistributable"] and params.restricted == "exclude":
+            where = destination(d, params.restricted)
+            if where == "excluded":
                 export_rows.append(remove_document("export", d, "not-redistributable",
                                                    f"consent '{d['consent']}' / licence '{d['licence']}'"))
                 continue
@@ -142,8 +151,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
             script_inventory.add(d)
             if d.get("seg_score"):
                 review.extend((d["id"], s, sc) for s, sc in zip(d["segments"], d["seg_score"]) if sc is not None)
-            (public if d["redistributable"] else restricted).append(d)
-            if d["redistributable"]:
+            (public if where == "public" else restricted).append(d)
+            if where == "public":
                 splits[d["split"] or "train"].append(d)
     for r in export_rows:
         counts.removed[f"{r.unit}:{r.reason}"] += 1

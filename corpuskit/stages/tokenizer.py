@@ -43,7 +43,7 @@ def train_tokenizer(lines: list[str], vocab_size: int, model_type: str, letters:
             m = _LIMIT.search(str(exc))
             if not m or int(m.group(1)) >= size:
                 raise
-            size = max(int(m.group(1)), len(present) + 4)
+            size = int(m.group(1))  # the largest size this text supports, as sentencepiece reports it
     return attempt(size), size  # pragma: no cover
 
 
