@@ -247,15 +247,12 @@ app.add_typer(variants_app, name="variants")
 
 
 @variants_app.command("propose")
-def variants_propose(recipe: Path = typer.Argument(...), out_dir: Path = typer.Option(None, "--out"),
+def variants_propose(recipe: Path = typer.Argument(...),
+                     out_dir: Path = typer.Option(None, "--out", help="the run's output folder (default: OUT next to the recipe)"),
                      sheet: Path = typer.Option(Path("variant-review.csv"), help="review sheet to write"),
                      top: int = typer.Option(200, help="candidates to propose")) -> None:
     """Propose ranked variant candidates from the corpus into a review sheet."""
-    try:
-        from .discovery import propose_from_run
-    except ImportError:
-        err.print("error: variant discovery is not built yet; edit the variant table by hand for now.")
-        raise typer.Exit(2)
+    from .discovery import propose_from_run
     from .recipe import load_recipe
 
     try:
@@ -271,11 +268,7 @@ def variants_accept(sheet: Path = typer.Argument(..., help="the reviewed sheet")
                     table: Path = typer.Option(..., help="variant table to update"),
                     rejected: Path = typer.Option(None, help="file remembering rejected pairs")) -> None:
     """Read a reviewed sheet back: accepted pairs into the table, rejected pairs remembered."""
-    try:
-        from .discovery import accept_sheet
-    except ImportError:
-        err.print("error: variant discovery is not built yet; edit the variant table by hand for now.")
-        raise typer.Exit(2)
+    from .discovery import accept_sheet
     try:
         added, refused = accept_sheet(sheet, table, rejected or table.with_suffix(".rejected.tsv"))
     except CorpusError as exc:

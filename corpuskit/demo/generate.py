@@ -45,14 +45,19 @@ PEOPLE = ["Tavi", "Moru", "Selka", "Bendo", "Irra", "Kelo", "Yamun", "Doru", "Li
 class Lexicon:
     def __init__(self, rng: random.Random, size: int = 420):
         self.rng = rng
-        words = set()
+        words, shapes = set(), set()
         while len(words) < size:
             n = rng.choice([1, 2, 2, 2, 3, 3])
             w = "".join(rng.choice(CONS) + rng.choice(VOWELS) for _ in range(n))
             if rng.random() < 0.3:
                 i = max(i for i, c in enumerate(w) if c in VOWELS)
                 w = w[:i] + TONES[w[i]] + w[i + 1:]
-            words.add(w)
+            # Keep the invented lexicon free of accidental near-homographs (words equal once tone
+            # and the ɛ/e, ɔ/o, ŋ/ng distinctions are dropped), so that a planted variant is
+            # the only thing that makes two written forms collide.
+            if ascii_variant(w) not in shapes:
+                shapes.add(ascii_variant(w))
+                words.add(w)
         self.base = sorted(words)
         rng.shuffle(self.base)
         # Each dialect has its own words for part of the lexicon and sound changes.
@@ -125,8 +130,8 @@ def vtt_time(t: float) -> str:
 
 def transcripts(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n_files: int) -> None:
     for f in range(n_files):
-        dialect = DIALECTS[f % 3] if f % 3 != 2 else "hill"
         fmt = "vtt" if f % 2 == 0 else "srt"
+        dialect = "hill" if fmt == "vtt" else "river"  # the two broadcasters, one per dialect
         speakers = rng.sample(PEOPLE, 2)
         cues, t = [], 1.0
         for c in range(rng.randint(12, 20)):
@@ -202,6 +207,11 @@ def booklets(out: Path, lex: Lexicon, rng: random.Random, truth: Truth, n_books:
             truth.add("page_furniture", booklet=f"book-{b + 1:02d}", page=p, header=title, footer=footer, number=f"- {p} -")
             if rng.random() < 0.3:  # an OCR confusion
                 i = rng.randrange(1, len(lines) - 2)
+                word = next((w for w in lines[i].split() if "m" in w), None)
+                if word:
+                    core = word.strip(".?-")
+                    truth.add("ocr_confusion", booklet=f"book-{b + 1:02d}", page=p,
+                              error=core.replace("m", "rn", 1).lower(), word=core.lower())
                 lines[i] = lines[i].replace("m", "rn", 1)
             _w(folder / f"page-{p:03d}.txt", "\n".join(lines) + "\n")
         if reprint_of is not None:

@@ -22,6 +22,7 @@ from ..records import jsonable
 from ..storage import atomic_write_text, file_sha256, write_gzip_lines
 from . import tokenizer as tok
 from . import transliterate as translit
+from . import variants as variants_stage
 from .qualityfilter import scrub
 
 VERSION = "1"
@@ -38,6 +39,26 @@ class Params:
     alpha: float = param(0.3, low=0.0, high=1.0, help="temperature-sampling exponent across dialects")
     dialect_floor: float = param(0.1, low=0, high=1, help="warn when a dialect's share of words is below this")
     medium_floor: float = param(0.05, low=0, high=1, help="warn when a medium's share of words is below this")
+
+
+def variants_report(docs: list[dict], rewrites: Counter) -> list[dict]:
+    """Per dialect: tokens each table entry or rule rewrote, and word types before and after.
+
+    "Before" adds back the variant forms a table entry removed (``table:variant→canonical``);
+    a form that also occurs unrewritten (protected, or outside the entry's scope) was never lost."""
+    from ..variants_table import type_counts
+    after = {d: set(type_counts(s for doc in docs if (doc.get("dialect") or "unknown") == d for s in doc["segments"]))
+             for d in {dialect for _, dialect in rewrites} | {doc.get("dialect") or "unknown" for doc in docs}}
+    rows = []
+    for dialect in sorted(after):
+        mine = {rule: n for (rule, d), n in rewrites.items() if d == dialect}
+        gone = {rule.split(":", 1)[1].split("→")[0].casefold() for rule in mine if rule.startswith("table:")}
+        before = after[dialect] | gone
+        for rule, n in sorted(mine.items()):
+            rows.append({"dialect": dialect, "rule": rule, "tokens_rewritten": n, "types_before": "", "types_after": ""})
+        rows.append({"dialect": dialect, "rule": "(all)", "tokens_rewritten": sum(mine.values()),
+                     "types_before": len(before), "types_after": len(after[dialect])})
+    return rows
 
 
 def transliteration_report(recipe, round_trip: Counter) -> list[dict]:
@@ -197,6 +218,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     not_public = {s.id for s in recipe.sources if not s.redistributable}
     removal_examples: dict[str, list[str]] = defaultdict(list)
     round_trip: Counter = Counter()
+    variant_rewrites: Counter = Counter()
     nfkc_folds: Counter = Counter()
     rewrite_by_reason: Counter = Counter()
     for stage in STAGE_ORDER:
@@ -221,7 +243,10 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
                     ex.append(r["text"][:120])
             elif r["action"] == "rewritten":
                 rewrite_by_reason[f"{stage}:{r['reason']}"] += 1
-                if r["reason"] == "transliterated":
+                if r["reason"] == "variant-rule":
+                    rule, n, dialect = variants_stage.parse_rule_row(r["detail"])
+                    variant_rewrites[(rule, dialect)] += n
+                elif r["reason"] == "transliterated":
                     round_trip[r["detail"].rsplit("; ", 1)[-1]] += 1
                 elif r["reason"] == "normalised" and "nfkc-folded:" in r["detail"]:
                     for item in r["detail"].split("nfkc-folded:", 1)[1].split(",", 1)[0].split():
@@ -245,6 +270,9 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "rewrites.csv", _csv([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
     extra = _stage_reports(runner, rep, review)
+    if variant_rewrites:
+        atomic_write_text(rep / "variants.csv", _csv(variants_report(public + restricted, variant_rewrites),
+                                                     ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
     atomic_write_text(rep / "sources.csv", _csv(source_rows, SOURCE_COLUMNS))
     translit_rows = transliteration_report(recipe, round_trip)

@@ -18,7 +18,7 @@ from ..recipe import param
 from ..storage import file_sha256, stable_hash
 from .. import variants_table as vt
 
-VERSION = "1"
+VERSION = "2"
 
 
 @dataclass(frozen=True)
@@ -26,6 +26,7 @@ class Params:
     table: str = param("", help="variant table (TSV: variant, canonical, scope, note)")
     rules: str = param("", help="ordered rewrite rules (TSV: pattern, replacement, scope, note)")
     protected: str = param("", help="words never rewritten, one per line")
+    costs: str = param("", help="edit costs for variant discovery (TSV: from, to, cost), e.g. ɛ/e cheap")
 
 
 def _paths(recipe, params):
@@ -56,8 +57,17 @@ def apply(docs: list[dict], params: Params, mapper):
             if used:
                 doc["segments"][i] = new
                 n_doc += sum(used.values())
-                totals.update(used)
+                totals.update({(rule, doc["dialect"] or "unknown"): n for rule, n in used.items()})
         doc["variants_applied"] = n_doc
-    for rule, n in sorted(totals.items()):
-        rows.append(LedgerRow("variants", "document", "rewritten", "*", -1, 0, "variant-rule", f"{rule}: {n} tokens", None, None))
+    # One row per rule and dialect: "<rule>: <n> tokens; dialect <name>" (read back by the variants report).
+    for (rule, dialect), n in sorted(totals.items()):
+        rows.append(LedgerRow("variants", "document", "rewritten", "*", -1, 0, "variant-rule",
+                              f"{rule}: {n} tokens; dialect {dialect}", None, None))
     return docs, rows
+
+
+def parse_rule_row(detail: str) -> tuple[str, int, str]:
+    """(rule, tokens, dialect) from a variant-rule ledger row's detail."""
+    head, _, dialect = detail.rpartition("; dialect ")
+    rule, _, n = head.rpartition(": ")
+    return rule, int(n.split()[0]), dialect
