@@ -203,3 +203,12 @@ def test_killed_at_chosen_points_resumes_to_identical_output(tmp_path, demo_run)
     run(recipe, out, workers=1)
     assert contract_files(out) == contract_files(demo_run.out)
     assert not list(out.rglob("*.tmp"))
+
+
+def test_dask_engine_gives_byte_identical_output(tmp_path, demo_run):
+    """The same recipe on a Dask LocalCluster of two worker processes (started and closed here)."""
+    pytest.importorskip("distributed")
+    recipe = copy_demo(tmp_path)
+    result = run(recipe, tmp_path / "dask", engine="dask", workers=2)
+    assert result.stage("dedup").computed >= 1
+    assert contract_files(result.out) == contract_files(demo_run.out)

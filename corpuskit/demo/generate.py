@@ -38,7 +38,7 @@ ENGLISH = ["the weather is fine today and the market opens early",
            "this page uses cookies to improve your experience",
            "new books arrived at the library last week"]
 # Bytes of source text at scale 1 (seeds and ground truth aside), measured on seed 7.
-BYTES_PER_SCALE = 69_000
+BYTES_PER_SCALE = 92_000
 PEOPLE = ["Tavi", "Moru", "Selka", "Bendo", "Irra", "Kelo", "Yamun", "Doru", "Lisse", "Amak"]
 
 

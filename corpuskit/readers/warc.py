@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from html.parser import HTMLParser
 from typing import Iterator
 
-from ..ledger import LedgerRow
+from ..ledger import LedgerRow, rewrite
 from ..recipe import param
 from ._decode import TextFile
 
@@ -72,7 +72,12 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
                                                f"{tf.rel} record {i} ({uri}): larger than max_record_bytes; skipped"))
                     continue
                 charset = re.search(r"charset=([\w-]+)", ctype)
-                text = body.decode(charset.group(1) if charset else "utf-8", errors="replace")
+                try:
+                    text = body.decode(charset.group(1) if charset else "utf-8", errors="replace")
+                except LookupError:  # a charset Python does not know: read it as UTF-8, with a row
+                    text = body.decode("utf-8", errors="replace")
+                    tf.issues.append(rewrite("ingest", tf.file_id, i, "unknown-charset",
+                                             f"{tf.rel} record {i} ({uri}): charset '{charset.group(1)}' unknown; read as UTF-8"))
                 lines = html_lines(text) if "html" in ctype else [ln for ln in text.splitlines() if ln.strip()]
                 if lines:
                     yield {"key": f"{i}", "segments": lines, "meta": {"file": tf.rel, "record": i, "uri": uri}}

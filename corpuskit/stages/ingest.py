@@ -1,7 +1,9 @@
 """Ingest: read every source with its reader and attach the source's provenance."""
 from __future__ import annotations
 
+import hashlib
 import json
+import math
 import os
 from collections import defaultdict
 from dataclasses import dataclass
@@ -14,7 +16,7 @@ from ..readers._decode import TextFile
 from ..recipe import SourceSpec, build
 from ..records import new_document
 
-VERSION = "1"
+VERSION = "2"
 
 
 @dataclass(frozen=True)
@@ -22,15 +24,41 @@ class Params:
     pass
 
 
+UNIT_BYTES = 16 << 20   # a unit of files read by one task aims at about this much input
+
+
 def group_files(source: SourceSpec, files: list[Path], folder: Path) -> list[list[tuple[Path, str]]]:
-    """Files read together: one per file, or all pages of a booklet folder for OCR pages."""
+    """Files read together by one task, in path order.
+
+    Small files are batched so that a source of thousands of files does not become thousands
+    of partitions.  A unit ends after a file (or, for OCR pages, a booklet folder) whose path
+    hash is 0 modulo k, with k chosen from the mean file size: the boundaries depend on each
+    path alone, so adding or changing one file changes only the unit it falls in and the rest
+    stay cached.  Units are also cut at four times UNIT_BYTES.
+    """
     rel = [(p, os.path.relpath(p, folder)) for p in files]
     if source.format == "ocr-pages" and source.options.get("booklet", "folder") == "folder":
-        groups: dict[str, list] = defaultdict(list)
+        by_folder: dict[str, list] = defaultdict(list)
         for p, r in rel:
-            groups[os.path.dirname(r)].append((p, r))
-        return [groups[k] for k in sorted(groups)]
-    return [[x] for x in rel]
+            by_folder[os.path.dirname(r)].append((p, r))
+        items = [(k, by_folder[k]) for k in sorted(by_folder)]
+    else:
+        items = [(r, [(p, r)]) for p, r in rel]
+    if not items:
+        return []
+    sizes = [sum(os.path.getsize(p) for p, _ in group) for _, group in items]
+    mean = max(1.0, sum(sizes) / len(items))
+    k = 1 << max(0, min(10, round(math.log2(max(1.0, UNIT_BYTES / mean)))))
+    units, current, current_bytes = [], [], 0
+    for (name, group), size in zip(items, sizes):
+        current.extend(group)
+        current_bytes += size
+        if int(hashlib.sha1(name.encode("utf-8")).hexdigest()[:8], 16) % k == 0 or current_bytes >= 4 * UNIT_BYTES:
+            units.append(current)
+            current, current_bytes = [], 0
+    if current:
+        units.append(current)
+    return units
 
 
 def _provenance(source: SourceSpec) -> dict:
@@ -46,19 +74,21 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
     opts = build(reader.Options, source.options, f"[[sources]] id = '{source.id}' options", "recipe")
     base = _provenance(source)
     if source.format == "ocr-pages" and getattr(opts, "booklet", "") == "folder":
-        segments, pages, lines = [], [], []
+        by_folder: dict[str, list] = defaultdict(list)
         for path, rel in files:
-            tf = TextFile(Path(path), rel, source.id, source.encoding)
-            for d in reader.read(tf, opts):
-                pages.append({"file": rel, "first": len(segments), "count": len(d["segments"])})
-                segments.extend(d["segments"])
-                lines.extend(d["meta"]["lines"])
-            issues.extend(tf.issues)
-            warnings.extend(tf.warnings)
-        if segments:
-            folder = os.path.dirname(files[0][1]) or "."
-            yield new_document(id=f"{source.id}:{folder}", segments=segments,
-                               meta={"folder": folder, "pages": pages}, **base)
+            by_folder[os.path.dirname(rel) or "."].append((path, rel))
+        for folder in sorted(by_folder):  # one document per booklet folder, pages in order
+            segments, pages = [], []
+            for path, rel in by_folder[folder]:
+                tf = TextFile(Path(path), rel, source.id, source.encoding)
+                for d in reader.read(tf, opts):
+                    pages.append({"file": rel, "first": len(segments), "count": len(d["segments"])})
+                    segments.extend(d["segments"])
+                issues.extend(tf.issues)
+                warnings.extend(tf.warnings)
+            if segments:
+                yield new_document(id=f"{source.id}:{folder}", segments=segments,
+                                   meta={"folder": folder, "pages": pages}, **base)
         return
     for path, rel in files:
         tf = TextFile(Path(path), rel, source.id, source.encoding)
