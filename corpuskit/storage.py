@@ -7,6 +7,7 @@ partition counts as done only when all three are complete.
 """
 from __future__ import annotations
 
+import contextlib
 import gzip
 import hashlib
 import io
@@ -14,7 +15,7 @@ import json
 import os
 import tempfile
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any, BinaryIO, Iterable, Iterator
 
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -54,12 +55,15 @@ def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
     return h.hexdigest()
 
 
-def _atomic(path: Path, write) -> None:
+@contextlib.contextmanager
+def atomic_open(path: Path) -> Iterator[BinaryIO]:
+    """A binary file that appears under ``path`` only when the block ends without error
+    (temporary name, fsync, rename); on any error the temporary file is removed."""
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as f:
-            write(f)
+            yield f
             f.flush()
             os.fsync(f.fileno())
         os.replace(tmp, path)
@@ -78,6 +82,21 @@ def _atomic(path: Path, write) -> None:
         raise
 
 
+def _atomic(path: Path, write) -> None:
+    with atomic_open(path) as f:
+        write(f)
+
+
+@contextlib.contextmanager
+def atomic_gzip_text(path: Path) -> Iterator[io.TextIOWrapper]:
+    """A UTF-8 text stream into a gzip file with no timestamp or name inside (equal content,
+    equal bytes), published atomically like ``atomic_open``."""
+    with atomic_open(path) as f:
+        with gzip.GzipFile(filename="", mode="wb", fileobj=f, mtime=0, compresslevel=6) as gz:
+            with io.TextIOWrapper(gz, encoding="utf-8", newline="\n") as t:
+                yield t
+
+
 def atomic_write_bytes(path: Path, data: bytes) -> None:
     _atomic(path, lambda f: f.write(data))
 
@@ -88,13 +107,10 @@ def atomic_write_text(path: Path, text: str) -> None:
 
 def write_gzip_lines(path: Path, lines: Iterable[str]) -> None:
     """Gzip with no timestamp or file name inside, so equal content gives equal bytes."""
-    def write(f):
-        with gzip.GzipFile(filename="", mode="wb", fileobj=f, mtime=0, compresslevel=6) as gz:
-            with io.TextIOWrapper(gz, encoding="utf-8", newline="\n") as t:
-                for line in lines:
-                    t.write(line)
-                    t.write("\n")
-    _atomic(path, write)
+    with atomic_gzip_text(path) as t:
+        for line in lines:
+            t.write(line)
+            t.write("\n")
 
 
 def _parquet_bytes(table: pa.Table) -> bytes:

@@ -129,3 +129,17 @@ def test_demo_splits_do_not_share_near_duplicates(demo_run):
                 if splits[i] != splits[j] and shingles[i] and shingles[j]
                 and len(shingles[i] & shingles[j]) / len(shingles[i] | shingles[j]) >= leak]
     assert set(splits) == {"train", "dev", "test"} and not crossing
+
+
+def test_sorting_and_datasketch_index_give_the_same_candidates(monkeypatch):
+    from corpuskit.stages import dedup
+    rng = np.random.default_rng(3)
+    base = rng.integers(0, 2**32, (300, 128), dtype=np.uint64).astype(np.uint32)
+    noisy = base[:120] ^ ((rng.random((120, 128)) < 0.3) * np.uint32(7)).astype(np.uint32)
+    sigs = np.concatenate([base, noisy, np.repeat(base[:1], 80, axis=0)])   # and one bucket of 81 copies
+    eligible = np.ones(len(sigs), bool)
+    bands, rows = dedup.lsh_params(0.5, 128, 0.3)
+    with_index = dedup.candidate_pairs(sigs, eligible, bands, rows)
+    monkeypatch.setattr(dedup, "DATASKETCH_INDEX_LIMIT", 10)
+    by_sorting = dedup.candidate_pairs(sigs, eligible, bands, rows)
+    assert with_index == by_sorting and len(with_index) > 100

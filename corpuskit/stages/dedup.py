@@ -248,6 +248,8 @@ def candidate_pairs(sigs: np.ndarray, eligible: np.ndarray, bands: int, rows: in
         return set()
     if engine is not None and hasattr(engine, "frame_groups"):
         return _candidates_by_shuffle(sigs, idx, bands, rows, engine)
+    if len(idx) > DATASKETCH_INDEX_LIMIT:
+        return _candidates_by_sorting(sigs, idx, bands, rows)
     from datasketch import LeanMinHash, MinHashLSH
     lsh = MinHashLSH(num_perm=sigs.shape[1], params=(bands, rows))
     with lsh.insertion_session() as session:
@@ -259,9 +261,9 @@ def candidate_pairs(sigs: np.ndarray, eligible: np.ndarray, bands: int, rows: in
     pairs = set()
     for table in lsh.hashtables:
         for key in table.keys():
-            members = sorted(table.get(key))
+            members = table.get(key)
             if len(members) > 1:
-                pairs.update((members[x], members[y]) for x in range(len(members)) for y in range(x + 1, len(members)))
+                pairs.update(bucket_pairs(np.fromiter(members, dtype=np.int64)))
     return pairs
 
 
@@ -277,6 +279,36 @@ def band_keys(sigs: np.ndarray, bands: int, rows: int) -> np.ndarray:
     return keys
 
 
+# datasketch's in-memory index keeps a Python dict entry per document and band; beyond this
+# many documents the same bands are grouped by sorting numpy arrays instead (same pairs,
+# a fraction of the memory).
+DATASKETCH_INDEX_LIMIT = 50_000
+# A bucket with more members than this links each member to its first one only (enough for
+# clustering by connected components) instead of every pair, which would grow quadratically.
+FULL_BUCKET = 64
+
+
+def bucket_pairs(members: np.ndarray) -> list[tuple[int, int]]:
+    members = np.sort(members)
+    if len(members) > FULL_BUCKET:
+        return [(int(members[0]), int(m)) for m in members[1:]]
+    return [(int(members[x]), int(members[y])) for x in range(len(members)) for y in range(x + 1, len(members))]
+
+
+def _candidates_by_sorting(sigs: np.ndarray, idx: np.ndarray, bands: int, rows: int) -> set[tuple[int, int]]:
+    """Documents agreeing on a band, found band by band by sorting the band keys."""
+    pairs: set[tuple[int, int]] = set()
+    for band in range(bands):
+        keys = band_keys(sigs[idx][:, band * rows:(band + 1) * rows], 1, rows)[:, 0]
+        order = np.argsort(keys, kind="stable")
+        ordered = keys[order]
+        starts = np.flatnonzero(np.concatenate([[True], ordered[1:] != ordered[:-1]]))
+        ends = np.append(starts[1:], len(ordered))
+        for a, b in zip(starts[ends - starts > 1], ends[ends - starts > 1]):
+            pairs.update(bucket_pairs(idx[order[a:b]]))
+    return pairs
+
+
 def _candidates_by_shuffle(sigs, idx, bands, rows, engine) -> set[tuple[int, int]]:
     import pandas as pd
     keys = band_keys(sigs[idx], bands, rows)
@@ -285,10 +317,7 @@ def _candidates_by_shuffle(sigs, idx, bands, rows, engine) -> set[tuple[int, int
     groups = engine.frame_groups(frame, ["band", "key"], "doc")
     pairs = set()
     for members in groups["doc"]:
-        members = sorted(int(m) for m in members)
-        for x in range(len(members)):
-            for y in range(x + 1, len(members)):
-                pairs.add((members[x], members[y]))
+        pairs.update(bucket_pairs(np.array([int(m) for m in members])))
     return pairs
 
 
@@ -314,11 +343,13 @@ def near_duplicate_pairs(data: dict, threshold: float, params: Params, engine=No
     if alive is not None:
         eligible &= alive
     bands, rows = lsh_params(threshold, params.num_perm, params.fp_weight)
+    pairs = np.array(sorted(candidate_pairs(sigs, eligible, bands, rows, engine)), dtype=np.int64).reshape(-1, 2)
     verified = []
-    for i, j in sorted(candidate_pairs(sigs, eligible, bands, rows, engine)):
-        est = estimate_jaccard(sigs[i], sigs[j])
-        if est >= threshold:
-            verified.append((i, j, est))
+    for start in range(0, len(pairs), 100_000):  # estimated Jaccard of a block of pairs at once
+        block = pairs[start:start + 100_000]
+        est = (sigs[block[:, 0]] == sigs[block[:, 1]]).mean(axis=1)
+        keep = est >= threshold
+        verified.extend(zip(block[keep, 0].tolist(), block[keep, 1].tolist(), est[keep].tolist()))
     return verified, (bands, rows)
 
 
