@@ -6,7 +6,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 OUT ?= demo-output
 
-.PHONY: demo test venv bench clean fuzz
+.PHONY: demo test venv bench bench-scale clean fuzz
 
 $(BIN)/corpuskit: pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -26,12 +26,16 @@ test: venv
 	$(BIN)/python -m pytest -q -p no:cacheprovider
 
 fuzz: venv
-	HYPOTHESIS_PROFILE=long $(BIN)/python -m pytest -q tests/test_fuzz.py
+	HYPOTHESIS_PROFILE=long $(BIN)/python -m pytest -q -p no:cacheprovider
 
 bench: venv
 	$(BIN)/python benchmarks/normalise.py
 	$(BIN)/python benchmarks/dedup.py
 	$(BIN)/python benchmarks/langid.py
+
+# Whole runs on generated 20 MB and 200 MB corpora (about an hour on 2 cores; needs ~3 GB of disk).
+bench-scale: venv
+	$(BIN)/python benchmarks/scale.py
 
 clean:
 	rm -rf $(VENV) $(OUT) build *.egg-info

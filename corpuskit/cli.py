@@ -283,3 +283,7 @@ def main() -> None:
         err.print("interrupted; finished partitions are kept and the next run resumes.")
         sys.exit(130)
 
+
+
+if __name__ == "__main__":
+    main()

@@ -65,6 +65,12 @@ def char_extensions(ch: str) -> frozenset[str]:
 
 def token_scripts(token: str) -> Counter:
     """Letters per script in one token, with Common and Inherited resolved from neighbours."""
+    return Counter(dict(_token_counts(token)))
+
+
+@lru_cache(maxsize=1 << 18)
+def _token_counts(token: str) -> tuple[tuple[str, int], ...]:
+    # Word tokens repeat (Zipf), so each distinct token is looked at once per process.
     counts: Counter = Counter()
     last = None
     for ch in token:
@@ -79,7 +85,7 @@ def token_scripts(token: str) -> Counter:
                 continue  # takes the neighbours' script; not counted on its own
         counts[sc] += 1
         last = sc
-    return counts
+    return tuple(counts.items())
 
 
 def token_script(token: str) -> str:
@@ -92,7 +98,8 @@ def token_script(token: str) -> str:
 def text_script(text: str) -> str:
     counts: Counter = Counter()
     for tok in TOKEN.findall(text):
-        counts.update(token_scripts(tok))
+        for sc, n in _token_counts(tok):
+            counts[sc] += n
     if not counts:
         return COMMON
     return sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))[0][0]
@@ -142,6 +149,7 @@ def best_look_alike(ch: str, script: str, letters: str = "") -> str | None:
     return found[0]
 
 
+@lru_cache(maxsize=1 << 18)
 def repair_token(token: str, target: str | None = None, letters: str = "") -> tuple[str, bool]:
     """Rewrite letters of a minority script that look like letters of the dominant one.
 
@@ -168,6 +176,13 @@ def repair_token(token: str, target: str | None = None, letters: str = "") -> tu
     return "".join(out), mixed
 
 
+def _scripts_in(text: str) -> int:
+    """How many scripts (Common and Inherited aside) the text's characters belong to."""
+    if text.isascii():
+        return 1
+    return len({char_script(c) for c in set(text)} - {COMMON, INHERITED})
+
+
 def apply(docs: list[dict], params: Params, ctx: dict | None):
     ctx = ctx or {"target": "Latn", "tables": {}, "by_source": {}}
     rows: list[LedgerRow] = []
@@ -177,7 +192,7 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
         source_table = ctx["by_source"].get(doc["source"])
         for i, seg in enumerate(doc["segments"]):
             new = seg
-            if params.repair_confusables:
+            if params.repair_confusables and _scripts_in(seg) > 1:  # one script: nothing can be mixed
                 pieces, repaired = [], []
                 last = 0
                 for m in TOKEN.finditer(seg):
