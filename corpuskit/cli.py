@@ -11,6 +11,7 @@ from typing import Optional
 import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.markup import escape
 from rich.table import Table
 
 from .errors import CorpusError
@@ -27,7 +28,8 @@ def _root() -> None:
 
 
 def _fail(exc: CorpusError) -> None:
-    err.print(f"[bold red]error:[/] {exc}", highlight=False, soft_wrap=True)
+    # Messages name recipe tables such as [[sources]] and [stages.dedup]: print them as text, not markup.
+    err.print(f"[bold red]error:[/] {escape(str(exc))}", highlight=False, soft_wrap=True)
     raise typer.Exit(exc.exit_code)
 
 
@@ -80,20 +82,20 @@ def _summary(result) -> None:
                   f"segments {cs['in']} = {cs['kept']} kept + {cs['removed']} removed: "
                   + ("[green]holds[/]" if ok else "[red]FAILS[/]"), highlight=False)
     for w in result.warnings[:20]:
-        err.print(f"[yellow]warning:[/] {w}", highlight=False, soft_wrap=True)
+        err.print(f"[yellow]warning:[/] {escape(w)}", highlight=False, soft_wrap=True)
 
 
 def _where(result) -> None:
     o = result.out
-    out.print(f"\nCorpus:     {o / 'corpus'}  (public shards and corpus.txt)", highlight=False)
+    out.print(f"\nCorpus:     {o / 'corpus'}  (public shards and corpus.txt)", highlight=False, markup=False)
     if (o / "restricted").exists() and any((o / "restricted").iterdir()):
-        out.print(f"Restricted: {o / 'restricted'}  (not for redistribution)", highlight=False)
-    out.print(f"Splits:     {o / 'splits'}", highlight=False)
-    out.print(f"Tokenizer:  {o / 'tokenizer'}", highlight=False)
-    out.print(f"Reports:    {o / 'reports'}  (open balance.html)", highlight=False)
-    out.print(f"Ledger:     {o / 'ledger.jsonl.gz'}", highlight=False)
-    out.print(f"Datasheet:  {o / 'datasheet.md'}", highlight=False)
-    out.print(f"Manifest:   {o / 'manifest.json'}", highlight=False)
+        out.print(f"Restricted: {o / 'restricted'}  (not for redistribution)", highlight=False, markup=False)
+    out.print(f"Splits:     {o / 'splits'}", highlight=False, markup=False)
+    out.print(f"Tokenizer:  {o / 'tokenizer'}", highlight=False, markup=False)
+    out.print(f"Reports:    {o / 'reports'}  (open balance.html)", highlight=False, markup=False)
+    out.print(f"Ledger:     {o / 'ledger.jsonl.gz'}", highlight=False, markup=False)
+    out.print(f"Datasheet:  {o / 'datasheet.md'}", highlight=False, markup=False)
+    out.print(f"Manifest:   {o / 'manifest.json'}", highlight=False, markup=False)
 
 
 def _run(recipe: Path, out_dir: Path, engine: str, workers: Optional[int], scheduler: Optional[str],
@@ -132,7 +134,7 @@ def demo(out_dir: Path = typer.Option(Path("demo-output"), "--out", help="output
          progress: bool = typer.Option(True, help="show progress bars")) -> None:
     """Run the bundled demo recipe (an invented language and sources)."""
     recipe = _demo_recipe()
-    out.print(f"Demo recipe: {recipe}", highlight=False)
+    out.print(f"Demo recipe: {recipe}", highlight=False, markup=False)
     _run(recipe, out_dir, "local", None, None, None, None, progress)
 
 
@@ -161,9 +163,9 @@ def check(recipe: Path = typer.Argument(..., help="the recipe TOML file")) -> No
     except CorpusError as exc:
         _fail(exc)
     out.print(f"{recipe}: valid; {len(r.sources)} sources, "
-              + ", ".join(f"{k} ({v} files)" for k, v in files.items()), highlight=False)
+              + ", ".join(f"{k} ({v} files)" for k, v in files.items()), highlight=False, markup=False)
     if open_q:
-        out.print(f"Datasheet questions not answered yet ({len(open_q)}): " + ", ".join(open_q), highlight=False)
+        out.print(f"Datasheet questions not answered yet ({len(open_q)}): " + ", ".join(open_q), highlight=False, markup=False)
 
 
 @app.command()
@@ -196,7 +198,7 @@ def trace(doc_id: str = typer.Argument(..., help="a document id"),
     except CorpusError as exc:
         _fail(exc)
     for line in lines:
-        out.print(line, highlight=False)
+        out.print(line, highlight=False, markup=False)
 
 
 @app.command()
@@ -210,9 +212,9 @@ def new(folder: Path = typer.Argument(..., help="folder for the new language pro
     except CorpusError as exc:
         _fail(exc)
     for p in made:
-        out.print(f"created {p}", highlight=False)
+        out.print(f"created {p}", highlight=False, markup=False)
     out.print(f"Next: put your files under {folder / 'sources'}, edit {folder / 'recipe.toml'}, then run "
-              f"'corpuskit check {folder / 'recipe.toml'}'.", highlight=False)
+              f"'corpuskit check {folder / 'recipe.toml'}'.", highlight=False, markup=False)
 
 
 langid_app = typer.Typer(help="Language identification between runs.", no_args_is_help=True)
@@ -239,7 +241,7 @@ def langid_evaluate(recipe: Path = typer.Argument(...),
     out.print(f"accuracy {report.get('accuracy', 0):.4f}, macro-F1 {report.get('macro_f1', 0):.4f}, "
               f"threshold {report['threshold']}", highlight=False)
     for lab, v in sorted(report.get("per_class", {}).items()):
-        out.print(f"  {lab:<16} P {v['precision']:.3f}  R {v['recall']:.3f}  F1 {v['f1']:.3f}  n {v['support']}", highlight=False)
+        out.print(f"  {lab:<16} P {v['precision']:.3f}  R {v['recall']:.3f}  F1 {v['f1']:.3f}  n {v['support']}", highlight=False, markup=False)
 
 
 variants_app = typer.Typer(help="Spelling variants: propose candidates, accept a reviewed sheet.", no_args_is_help=True)
@@ -260,7 +262,7 @@ def variants_propose(recipe: Path = typer.Argument(...),
     except CorpusError as exc:
         _fail(exc)
     out.print(f"wrote {n} candidates to {sheet}; mark each row accept or reject, then run 'corpuskit variants accept'.",
-              highlight=False)
+              highlight=False, markup=False)
 
 
 @variants_app.command("accept")
@@ -273,7 +275,7 @@ def variants_accept(sheet: Path = typer.Argument(..., help="the reviewed sheet")
         added, refused = accept_sheet(sheet, table, rejected or table.with_suffix(".rejected.tsv"))
     except CorpusError as exc:
         _fail(exc)
-    out.print(f"{added} pairs added to {table}; {refused} rejected pairs remembered.", highlight=False)
+    out.print(f"{added} pairs added to {table}; {refused} rejected pairs remembered.", highlight=False, markup=False)
 
 
 def main() -> None:

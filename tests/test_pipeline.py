@@ -111,6 +111,9 @@ def test_cli_runner_and_subprocess(tmp_path, demo_run):
     bad.write_text("[corpus]\nname = 'x'\nlanguage = 'qnv'\nfoo = 1\n")
     r = runner.invoke(app, ["check", str(bad)], env={"COLUMNS": "300"})
     assert r.exit_code == 2 and "unknown key 'foo'" in r.stderr
+    bad.write_text("[corpus]\nname = 'x'\nlanguage = 'qnv'\n[stages.dedup]\nthreshhold = 0.5\n")
+    r = runner.invoke(app, ["check", str(bad)], env={"COLUMNS": "300"})
+    assert r.exit_code == 2 and "no [[sources]] given" in r.stderr  # table names are text, not console markup
     doc = load_corpus(demo_run.out)["id"].iloc[0]
     r = runner.invoke(app, ["trace", doc, "--out", str(demo_run.out)], env={"COLUMNS": "300"})
     assert r.exit_code == 0 and "kept in corpus/" in r.stdout

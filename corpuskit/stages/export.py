@@ -336,9 +336,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "rewrites.csv", _csv([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
     extra = _stage_reports(runner, rep, review)
-    if variant_rewrites:
-        atomic_write_text(rep / "variants.csv", _csv(variants_report(stats.types["dialect"], variant_rewrites),
-                                                     ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
+    atomic_write_text(rep / "variants.csv", _csv(variants_report(stats.types["dialect"], variant_rewrites),
+                                                 ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
     atomic_write_text(rep / "sources.csv", _csv(source_rows, SOURCE_COLUMNS))
     translit_rows = transliteration_report(recipe, round_trip)

@@ -16,7 +16,7 @@ from ..ledger import LedgerRow, remove_document
 from ..recipe import param
 from ._base import drop_empty, keep_segments
 
-VERSION = "2"
+VERSION = "3"
 
 
 @dataclass(frozen=True)
@@ -43,7 +43,8 @@ PII_PATTERNS = [
         (?:\+\d{1,3}[\s.-]?|\(\d{1,4}\)[\s.-]?)   # a country code or an area code in brackets
         (?:\(\d{1,4}\)[\s.-]?)?
         \d{2,4}(?:[\s.-]\d{2,4}){1,4}           # then two or more groups of digits
-      | \d{2,4}(?:[\s.-]\d{2,4}){2,4}           # or three or more groups without either
+      | (?!\d{4}-\d{2}-\d{2}(?![\d-]))            # (not an ISO 8601 date)
+        \d{2,4}(?:[\s.-]\d{2,4}){2,4}           # or three or more groups without either
         )(?![\w])""", regex.X)),
 ]
 URL = regex.compile(r"https?://\S+|www\.\S+")
