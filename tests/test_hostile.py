@@ -1,7 +1,8 @@
 """Hostile input: every case gives a clear message or ledger rows, never a crash, never a lost line.
 
-The inputs are made here, in temporary folders (nothing large is committed).  HOSTILE_CASES
-counts the byte-level cases; the recipe, review-sheet and disk cases follow.
+The inputs are made here, in temporary folders (nothing large is committed): byte-level cases
+through the shared decoder and the readers, the same files through a whole run, then recipes,
+review sheets, a full disk and reader fuzzing.
 """
 import codecs
 import errno
@@ -111,9 +112,6 @@ def test_srt_with_broken_timestamps(tmp_path):
     docs = list(READERS["srt"].read(tf, READERS["srt"].Options()))
     segs = [s for d in docs for s in d["segments"]]
     assert "Kema tabu" in segs and (("Yɔgí bé" in segs) or any("timing" in r.reason for r in tf.issues))
-
-
-HOSTILE_CASES = 14  # the byte-level cases above (parametrised UTF-16 counted as four)
 
 
 # -- the same files through a whole run: conservation holds -------------------------------------

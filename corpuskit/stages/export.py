@@ -307,9 +307,10 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         atomic_write_text(out / "restricted" / "README.txt",
                           "Documents whose consent scope or licence does not allow redistribution.\n"
                           "Keep this folder with the community that holds the material; do not publish it.\n")
-    elif restricted is not None:
+    elif restricted is not None:  # nothing restricted: no folder, as with restricted = "exclude"
         for f in (out / "restricted").glob("*"):
             f.unlink()
+        (out / "restricted").rmdir()
     for r in export_rows:
         counts.removed[f"{r.unit}:{r.reason}"] += 1
 
