@@ -19,7 +19,7 @@ from scipy import sparse
 
 from corpuskit.demo.generate import Lexicon
 from corpuskit.stages.dedup import (Params, batch_shingle_hashes, batch_signatures, candidate_pairs, estimate_jaccard, lsh_params,
-                                    normalise_for_hash, permutations, shingle_hashes)
+                                    normalise_for_hash, permutations)
 
 
 def make_documents(n: int, seed: int = 11) -> list[str]:

@@ -35,10 +35,11 @@ from pathlib import Path
 import regex
 
 from .errors import DataError, RecipeError
-from .variants_table import TABLE_HEADER, load_table, neutralise_cell, tokens, write_sheet
+from .variants_table import TABLE_HEADER, load_table, restore_cell, tokens, write_sheet
 
 __all__ = ["CostTable", "TypeStats", "Candidate", "collect", "propose", "weighted_distance", "fold_key",
-           "load_costs", "propose_from_run", "accept_sheet", "load_rejected", "SHEET_COLUMNS", "COSTS_HEADER"]
+           "load_costs", "propose_from_run", "accept_sheet", "load_rejected", "rejected_path", "sheet_rows",
+           "ppmi_vectors", "cosine", "candidate_pairs", "SHEET_COLUMNS", "COSTS_HEADER"]
 
 COSTS_HEADER = "# corpuskit variant costs 1"
 _GRAPHEME = regex.compile(r"\X")
@@ -392,10 +393,6 @@ def load_rejected(path: Path) -> set[tuple[str, str]]:
             if line.strip() and not line.startswith("#") and "\t" in line}
 
 
-def _unneutralise(cell: str) -> str:
-    return cell[1:] if cell.startswith("'") and cell[1:2] in ("=", "+", "-", "@", "\t", "\r") else cell
-
-
 def accept_sheet(sheet: Path, table: Path, rejected: Path) -> tuple[int, int]:
     """Accepted rows go into the variant table (once), rejected pairs into the rejected file.
 
@@ -408,7 +405,7 @@ def accept_sheet(sheet: Path, table: Path, rejected: Path) -> tuple[int, int]:
             if missing:
                 raise DataError(f"{sheet} line 1: the sheet has no column {', '.join(sorted(missing))}; "
                                 "keep the header that 'corpuskit variants propose' wrote.")
-            rows = [(n, {k: _unneutralise(v or "") for k, v in r.items() if k}) for n, r in enumerate(reader, 2)]
+            rows = [(n, {k: restore_cell(v or "") for k, v in r.items() if k}) for n, r in enumerate(reader, 2)]
     except FileNotFoundError:
         raise DataError(f"{sheet}: review sheet not found.") from None
     existing = load_table(table) if table.exists() else []
@@ -473,5 +470,3 @@ def propose_from_run(recipe, out: Path, sheet: Path, top: int) -> int:
     write_sheet(Path(sheet), sheet_rows(candidates, stats), SHEET_COLUMNS)
     return len(candidates)
 
-
-__all__ += ["neutralise_cell", "rejected_path", "sheet_rows", "ppmi_vectors", "cosine", "candidate_pairs"]

@@ -258,8 +258,6 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
 
 
 def _check_language(corpus: CorpusSpec, path: Path) -> None:
-    import langcodes
-
     if not is_valid_language_tag(corpus.language):
         raise RecipeError(f"{path}: [corpus] key 'language' = '{corpus.language}' is not a valid BCP 47 tag; "
                           "use e.g. 'qxk' or 'qxk-Latn' (local-use codes are qaa-qtz).")

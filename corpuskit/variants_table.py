@@ -23,7 +23,7 @@ import regex
 from .errors import RecipeError
 
 __all__ = ["VariantEntry", "Rule", "Mapper", "load_table", "load_rules", "load_protected", "tokens", "match_case",
-           "TABLE_HEADER"]
+           "TABLE_HEADER", "neutralise_cell", "restore_cell", "write_sheet", "type_counts"]
 
 TABLE_HEADER = "# corpuskit variant table 1"
 RULES_HEADER = "# corpuskit variant rules 1"
@@ -161,6 +161,11 @@ class Mapper:
 def neutralise_cell(value: str) -> str:
     """Make a CSV cell safe to open in a spreadsheet: a leading =, +, -, @, tab or CR is quoted."""
     return "'" + value if value[:1] in ("=", "+", "-", "@", "\t", "\r") else value
+
+
+def restore_cell(value: str) -> str:
+    """Undo ``neutralise_cell``: drop the quote a formula-looking cell was given."""
+    return value[1:] if value.startswith("'") and value[1:2] in ("=", "+", "-", "@", "\t", "\r") else value
 
 
 def write_sheet(path: Path, rows: list[dict], columns: list[str]) -> None:

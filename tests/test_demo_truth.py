@@ -1,6 +1,5 @@
 """Stages scored against the demo's ground truth (sample_texts/ground-truth.json), plus invariants."""
 import gzip
-import json
 import unicodedata
 from collections import Counter
 

@@ -60,9 +60,7 @@ def test_script_property_against_scripts_txt():
     path = UCD / "Scripts.txt"
     if not path.exists():
         pytest.skip("Debian's unicode-data is not installed")
-    from fontTools.unicodedata.OTTags import DEFAULT_SCRIPT  # noqa: F401
     from fontTools import unicodedata as ftu
-    import unicodedata2  # noqa: F401 - installed for names only
     short = {}
     for line in (UCD / "PropertyValueAliases.txt").read_text().splitlines():
         if line.startswith("sc ;"):

@@ -1,12 +1,9 @@
 """End-to-end behaviour of the runner: conservation, determinism, caching, resumption, the CLI."""
-import gzip
 import hashlib
 import json
-import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import pytest

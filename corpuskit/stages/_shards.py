@@ -27,7 +27,7 @@ class DocumentSet:
         self._stack = stack
         self._shard: contextlib.ExitStack | None = None
         self._jsonl = None
-        self._text = stack.enter_context(_text_file(folder / f"{name}.txt"))
+        self._text = stack.enter_context(atomic_open(folder / f"{name}.txt"))
         self._first_line = True
 
     def _shard_path(self, index: int) -> Path:
@@ -66,9 +66,3 @@ class DocumentSet:
         if self._jsonl is None:
             self._rotate()
         self._shard.close()
-
-
-@contextlib.contextmanager
-def _text_file(path: Path):
-    with atomic_open(path) as f:
-        yield f

@@ -298,8 +298,9 @@ def bucket_pairs(members: np.ndarray) -> list[tuple[int, int]]:
 def _candidates_by_sorting(sigs: np.ndarray, idx: np.ndarray, bands: int, rows: int) -> set[tuple[int, int]]:
     """Documents agreeing on a band, found band by band by sorting the band keys."""
     pairs: set[tuple[int, int]] = set()
+    keys_by_band = band_keys(sigs[idx], bands, rows)
     for band in range(bands):
-        keys = band_keys(sigs[idx][:, band * rows:(band + 1) * rows], 1, rows)[:, 0]
+        keys = keys_by_band[:, band]
         order = np.argsort(keys, kind="stable")
         ordered = keys[order]
         starts = np.flatnonzero(np.concatenate([[True], ordered[1:] != ordered[:-1]]))

@@ -29,6 +29,7 @@ from ..errors import RecipeError
 from ..ledger import LedgerRow, remove_document
 from ..recipe import param
 from ..storage import file_sha256, stable_hash
+from ..variants_table import restore_cell
 from ._base import keep_segments
 
 VERSION = "2"
@@ -88,12 +89,8 @@ def read_seeds(recipe, params) -> list[tuple[str, str]]:
                 for row in csv.DictReader(f):
                     label = (row.get("label") or "").strip()
                     if label and label in params.seeds:
-                        examples.append((label, prepare_line(_unneutralise(row.get("text", "")))))
+                        examples.append((label, prepare_line(restore_cell(row.get("text", "")))))
     return examples
-
-
-def _unneutralise(cell: str) -> str:
-    return cell[1:] if cell.startswith("'") and cell[1:2] in ("=", "+", "-", "@", "\t", "\r") else cell
 
 
 def train(examples: list[tuple[str, str]], params: Params, path: Path) -> None:

@@ -23,7 +23,7 @@ import regex
 
 from ..ledger import LedgerRow
 from ..recipe import param
-from ._base import drop_empty, no_context
+from ._base import drop_empty
 
 VERSION = "2"
 
