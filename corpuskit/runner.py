@@ -304,7 +304,8 @@ class Runner:
         from .stages import export
         started = time.perf_counter()
         result = export.write_outputs(self, in_stage, parts, reports)
-        report = StageReport("export", counts=result.pop("counts"), computed=1)
+        pieces = getattr(self, "export_pieces", {"computed": 1, "reused": 0})
+        report = StageReport("export", counts=result.pop("counts"), computed=pieces["computed"], reused=pieces["reused"])
         report.seconds = time.perf_counter() - started
         reports.append(report)
         res = RunResult(self.out, reports, result["conservation"], result["manifest"], warnings=self.warnings)

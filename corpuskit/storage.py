@@ -55,6 +55,15 @@ def file_sha256(path: Path, chunk: int = 1 << 20) -> str:
     return h.hexdigest()
 
 
+def _file_mode() -> int:
+    umask = os.umask(0)
+    os.umask(umask)
+    return 0o666 & ~umask
+
+
+FILE_MODE = _file_mode()
+
+
 @contextlib.contextmanager
 def atomic_open(path: Path) -> Iterator[BinaryIO]:
     """A binary file that appears under ``path`` only when the block ends without error
@@ -65,6 +74,7 @@ def atomic_open(path: Path) -> Iterator[BinaryIO]:
         with os.fdopen(fd, "wb") as f:
             yield f
             f.flush()
+            os.fchmod(f.fileno(), FILE_MODE)  # mkstemp makes owner-only files; use the usual mode
             os.fsync(f.fileno())
         os.replace(tmp, path)
     except OSError as exc:

@@ -37,8 +37,9 @@ ENGLISH = ["the weather is fine today and the market opens early",
            "thank you for your support during the rainy season",
            "this page uses cookies to improve your experience",
            "new books arrived at the library last week"]
-# Bytes of source text at scale 1 (seeds and ground truth aside), measured on seed 7.
-BYTES_PER_SCALE = 92_000
+# Bytes of source text per unit of scale (seeds and ground truth aside), measured on seed 7
+# at scale 228 (15.2 MB).
+BYTES_PER_SCALE = 66_700
 PEOPLE = ["Tavi", "Moru", "Selka", "Bendo", "Irra", "Kelo", "Yamun", "Doru", "Lisse", "Amak"]
 
 

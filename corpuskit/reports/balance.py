@@ -6,6 +6,7 @@ self-contained HTML page with matplotlib plots embedded as PNG data.
 from __future__ import annotations
 
 import base64
+import bisect
 import html
 import io
 from collections import Counter, defaultdict
@@ -18,17 +19,32 @@ from .stats import effective_number, heaps_fit, imbalance_ratio, jaccard, shanno
 
 WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}ʼ'’-]+")
 AXES = ("dialect", "source", "medium", "script", "contributor")
+TYPE_AXES = ("dialect", "source", "medium", "script")
 
 
 class Accumulator:
+    """Counts per dialect, source, medium, script and contributor; word types; and the order in
+    which each dialect's types first appear (type-token growth).  Filled document by document
+    (``add``) in one partition, then partitions are combined in order (``state``, ``merge``)."""
+
     def __init__(self):
         self.rows = {a: defaultdict(Counter) for a in AXES}
-        self.types = {a: defaultdict(set) for a in ("dialect", "source", "medium", "script")}
-        self.growth: dict[str, list[tuple[int, int]]] = defaultdict(list)
-        self._next = defaultdict(lambda: 1)
+        self.types = {a: defaultdict(set) for a in TYPE_AXES}
+        self.firsts: dict[str, list[int]] = defaultdict(list)    # dialect -> token positions of new types
+        self._new_words: dict[str, list] = defaultdict(list)      # dialect -> [position, word] (for state)
 
     def add(self, doc: dict) -> None:
         words = [w.casefold() for s in doc["segments"] for w in WORD.findall(s)]
+        d = doc.get("dialect") or "unknown"
+        seen, start = self.types["dialect"][d], self.rows["dialect"][d]["words"]
+        for k, w in enumerate(words):
+            if w not in seen:
+                seen.add(w)
+                self.firsts[d].append(start + k)
+                self._new_words[d].append([start + k, w])
+        self._count(doc, words)
+
+    def _count(self, doc: dict, words: list[str]) -> None:
         chars = sum(len(s) for s in doc["segments"])
         for a in AXES:
             key = doc.get(a) or "unknown"
@@ -39,11 +55,40 @@ class Accumulator:
             c["characters"] += chars
             if a in self.types:
                 self.types[a][key].update(words)
-        d = doc.get("dialect") or "unknown"
-        tokens = self.rows["dialect"][d]["words"]
-        if tokens >= self._next[d]:
-            self.growth[d].append((tokens, len(self.types["dialect"][d])))
-            self._next[d] = int(tokens * 1.25) + 1
+
+    def state(self) -> dict:
+        """Everything ``merge`` needs, as JSON-ready values."""
+        return {"rows": {a: {k: dict(c) for k, c in sorted(v.items())} for a, v in self.rows.items()},
+                "types": {a: {k: sorted(s) for k, s in sorted(v.items())} for a, v in self.types.items()},
+                "new_words": dict(sorted(self._new_words.items()))}
+
+    def merge(self, state: dict) -> None:
+        """Add a later partition's ``state``: types it met first move to this position in the stream."""
+        for d, new_words in state["new_words"].items():
+            seen, start = self.types["dialect"][d], self.rows["dialect"][d]["words"]
+            for position, w in new_words:
+                if w not in seen:
+                    seen.add(w)
+                    self.firsts[d].append(start + position)
+        for a, groups in state["rows"].items():
+            for key, c in groups.items():
+                self.rows[a][key].update(c)
+        for a, groups in state["types"].items():
+            for key, words in groups.items():
+                self.types[a][key].update(words)
+
+    @property
+    def growth(self) -> dict[str, list[tuple[int, int]]]:
+        """Per dialect, (tokens, types) after 1 token and then at steps of 25% more tokens, and at the end."""
+        out = {}
+        for d, positions in sorted(self.firsts.items()):
+            total = self.rows["dialect"][d]["words"]
+            points, t = [], 1
+            while t < total:
+                points.append((t, bisect.bisect_left(positions, t)))
+                t = int(t * 1.25) + 1
+            out[d] = points + [(total, len(positions))]
+        return out
 
     def table(self, axis: str) -> list[dict]:
         total = {k: sum(c[k] for c in self.rows[axis].values()) for k in ("documents", "segments", "words", "characters")}
@@ -76,6 +121,15 @@ class ScriptInventory:
                 self.chars[key] += 1
                 if key not in self.examples:
                     self.examples[key] = seg[max(0, i - 15):i + 15]
+
+    def state(self) -> list:
+        return [[*key, n, self.examples[key]] for key, n in sorted(self.chars.items())]
+
+    def merge(self, state: list) -> None:
+        for *key, n, example in state:
+            key = tuple(key)
+            self.chars[key] += n
+            self.examples.setdefault(key, example)
 
     def csv(self) -> str:
         import csv as _csv

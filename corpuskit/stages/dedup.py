@@ -13,7 +13,7 @@ source priority, then longest, then earliest.
 from __future__ import annotations
 
 import hashlib
-import json
+import io
 from collections import defaultdict
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,7 +25,7 @@ from ..ledger import LedgerRow, remove_document, remove_segment
 from ..recipe import param
 from ..storage import Cache, atomic_write_bytes, stable_hash
 
-VERSION = "1"
+VERSION = "2"
 MASK32 = np.uint64(0xFFFFFFFF)
 SCHEME_SEED = 20261201
 
@@ -166,64 +166,166 @@ def estimate_jaccard(s1: np.ndarray, s2: np.ndarray) -> float:
 
 
 def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params, out_name: str, stage: str) -> str:
-    """Signatures, exact-text hashes and segment hashes of one partition, saved as .npz."""
+    """One partition's signatures (``<name>.npy``, memory-mappable) and its per-document facts
+    (``<name>.npz``: ids, shingle counts, lengths, exact-text and segment hashes)."""
     cache = Cache(Path(cache_root).parent)
-    path = cache.blob_path(stage, out_name)
-    if path.exists():
+    facts_path = cache.blob_path(stage, f"{out_name}.npz")
+    if facts_path.exists():
         return out_name
     docs = cache.read_docs(in_stage, in_key)
     a, b = permutations(params.num_perm)
-    sigs = np.zeros((len(docs), params.num_perm), dtype=np.uint32)
-    n_sh = np.zeros(len(docs), dtype=np.int64)
-    exact, seg_hashes, seg_offsets = [], [], [0]
     texts = [" ".join(doc["segments"]) for doc in docs]
     hash_sets = batch_shingle_hashes(texts, params.ngram, params.shingle, distinct=False)
-    for i, (doc, text) in enumerate(zip(docs, texts)):
-        n_sh[i] = len(hash_sets[i])
-        exact.append(hashlib.sha1(normalise_for_hash(text).encode()).hexdigest()[:16])
-        seg_hashes.extend(int(hashlib.sha1(normalise_for_hash(s).encode()).hexdigest()[:15], 16) for s in doc["segments"])
-        seg_offsets.append(len(seg_hashes))
-    sigs[:] = batch_signatures(hash_sets, a, b)
-    import io
+    seg_hashes = [segment_hash(s) for doc in docs for s in doc["segments"]]
+    seg_offsets = np.cumsum([0] + [len(doc["segments"]) for doc in docs])
+    sigs = batch_signatures(hash_sets, a, b) if docs else np.zeros((0, params.num_perm), np.uint32)
     buf = io.BytesIO()
-    np.savez(buf, ids=np.array([d["id"] for d in docs], dtype=object), sigs=sigs, n_shingles=n_sh,
-             exact=np.array(exact, dtype=object), lengths=np.array([sum(map(len, d["segments"])) for d in docs]),
-             sources=np.array([d["source"] for d in docs], dtype=object),
-             dialects=np.array([d["dialect"] or "" for d in docs], dtype=object),
-             seg_hashes=np.array(seg_hashes, dtype=np.int64), seg_offsets=np.array(seg_offsets, dtype=np.int64))
-    atomic_write_bytes(path, buf.getvalue())
+    np.save(buf, sigs)
+    atomic_write_bytes(cache.blob_path(stage, f"{out_name}.npy"), buf.getvalue())
+    buf = io.BytesIO()
+    np.savez(buf, ids=np.array([d["id"] for d in docs], dtype=str), n_shingles=np.array([len(h) for h in hash_sets], np.int64),
+             exact=np.array([text_hash(t) for t in texts], dtype=np.uint64),
+             lengths=np.array([sum(map(len, d["segments"])) for d in docs], dtype=np.int64),
+             sources=np.array([d["source"] for d in docs], dtype=str),
+             dialects=np.array([d["dialect"] or "" for d in docs], dtype=str),
+             seg_hashes=np.array(seg_hashes, dtype=np.int64), seg_offsets=seg_offsets.astype(np.int64))
+    atomic_write_bytes(facts_path, buf.getvalue())  # written last: its presence means both are complete
     return out_name
 
 
-def load_signatures(runner, stage: str, in_stage: str, parts, params: Params) -> dict[str, Any]:
-    """Compute (or reuse) every partition's signatures and stack them in partition order."""
-    names = {p.key: f"sig-{stable_hash(VERSION, p.key, params.num_perm, params.ngram, params.shingle)}.npz" for p in parts}
-    todo = [p for p in parts if not runner.cache.has_blob(stage, names[p.key])]
+def text_hash(text: str) -> int:
+    """64-bit hash of a text after case folding and whitespace collapsing (exact duplicates)."""
+    return int.from_bytes(hashlib.sha1(normalise_for_hash(text).encode()).digest()[:8], "little")
+
+
+def segment_hash(segment: str) -> int:
+    return int(hashlib.sha1(normalise_for_hash(segment).encode()).hexdigest()[:15], 16)
+
+
+class SignatureSet:
+    """The signatures and per-document facts of a stage's partitions, rows in partition order.
+
+    Small per-document columns are held as arrays (a few dozen bytes a document); the
+    signatures themselves stay in their partition files and are read a partition at a
+    time (band keys) or row by row through a memory map (verifying candidate pairs), so a
+    run holds no ``documents x num_perm`` array."""
+
+    def __init__(self, num_perm: int, sig_files: list[Path] | None = None, fact_files: list[Path] | None = None,
+                 part_keys: list[str] | None = None, sigs: np.ndarray | None = None, n_shingles: np.ndarray | None = None):
+        self.num_perm = num_perm
+        self.sig_files, self.fact_files, self.part_keys = sig_files or [], fact_files or [], part_keys or []
+        self._in_memory = sigs
+        self._maps: dict[int, np.ndarray] = {}
+        cols = defaultdict(list)
+        sizes, seg_base = [], 0
+        self.source_names: list[str] = []
+        self.dialect_names: list[str] = []
+        for path in self.fact_files:
+            with np.load(path) as z:
+                sizes.append(len(z["ids"]))
+                for k in ("n_shingles", "lengths", "exact"):
+                    cols[k].append(z[k])
+                cols["source"].append(_codes(z["sources"], self.source_names))
+                cols["dialect"].append(_codes(z["dialects"], self.dialect_names))
+                cols["seg_hashes"].append(z["seg_hashes"])
+                cols["seg_offsets"].append(z["seg_offsets"][1:] + seg_base)
+                seg_base += int(z["seg_offsets"][-1])
+        if sigs is not None:
+            sizes = [len(sigs)]
+            cols["n_shingles"] = [np.asarray(n_shingles if n_shingles is not None else np.full(len(sigs), num_perm))]
+        self.offsets = np.concatenate([[0], np.cumsum(sizes, dtype=np.int64)]).astype(np.int64)
+
+        def column(name, dtype):
+            return np.concatenate(cols[name]).astype(dtype) if cols[name] else np.zeros(0, dtype)
+        n = int(self.offsets[-1])
+        self.n_shingles = column("n_shingles", np.int64)
+        self.lengths = column("lengths", np.int64) if cols["lengths"] else np.zeros(n, np.int64)
+        self.exact = column("exact", np.uint64) if cols["exact"] else np.arange(n, dtype=np.uint64)
+        self.source = column("source", np.int32) if cols["source"] else np.zeros(n, np.int32)
+        self.dialect = column("dialect", np.int32) if cols["dialect"] else np.zeros(n, np.int32)
+        self.seg_hashes = column("seg_hashes", np.int64)
+        self.seg_offsets = np.concatenate([[0], column("seg_offsets", np.int64)]).astype(np.int64)
+
+    @classmethod
+    def from_arrays(cls, sigs: np.ndarray, n_shingles: np.ndarray | None = None) -> "SignatureSet":
+        """A set held in memory (tests, benchmarks)."""
+        return cls(sigs.shape[1], sigs=np.asarray(sigs, dtype=np.uint32), n_shingles=n_shingles)
+
+    def __len__(self) -> int:
+        return int(self.offsets[-1])
+
+    def part_index(self, rows: np.ndarray) -> np.ndarray:
+        return np.searchsorted(self.offsets, rows, side="right") - 1
+
+    def _by_partition(self, rows: np.ndarray):
+        """(partition number, positions in ``rows``, rows within the partition) per partition touched."""
+        part = self.part_index(rows)
+        order = np.argsort(part, kind="stable")
+        bounds = np.flatnonzero(np.diff(part[order])) + 1
+        for sel in np.split(order, bounds) if len(order) else []:
+            p = int(part[sel[0]])
+            yield p, sel, rows[sel] - self.offsets[p]
+
+    def take(self, rows) -> np.ndarray:
+        """Signatures of the given rows."""
+        rows = np.asarray(rows, dtype=np.int64)
+        if self._in_memory is not None:
+            return self._in_memory[rows]
+        out = np.empty((len(rows), self.num_perm), dtype=np.uint32)
+        for p, sel, local in self._by_partition(rows):
+            if p not in self._maps:
+                self._maps[p] = np.load(self.sig_files[p], mmap_mode="r")
+            out[sel] = self._maps[p][local]
+        return out
+
+    def ids(self, rows) -> list[str]:
+        """Document ids of the given rows."""
+        rows = np.asarray(rows, dtype=np.int64)
+        if self._in_memory is not None:
+            return [str(r) for r in rows]
+        out = [""] * len(rows)
+        for p, sel, local in self._by_partition(rows):
+            with np.load(self.fact_files[p]) as z:
+                names = z["ids"][local]
+            for at, name in zip(sel.tolist(), names.tolist()):
+                out[at] = name
+        return out
+
+    def partition_of(self, row: int) -> str:
+        return self.part_keys[int(self.part_index(np.array([row]))[0])]
+
+    def band_keys(self, rows: np.ndarray, bands: int, rows_per_band: int) -> np.ndarray:
+        """``band_keys`` of the given (sorted) rows, reading one partition's signatures at a time."""
+        if self._in_memory is not None:
+            return band_keys(self._in_memory[rows], bands, rows_per_band)
+        keys = np.zeros((len(rows), bands), dtype=np.uint64)
+        for p, sel, local in self._by_partition(np.asarray(rows, dtype=np.int64)):
+            keys[sel] = band_keys(np.load(self.sig_files[p])[local], bands, rows_per_band)
+        return keys
+
+
+def _codes(values: np.ndarray, names: list[str]) -> np.ndarray:
+    """Small integer codes for strings, extending ``names`` with the new ones."""
+    uniq, inverse = np.unique(values, return_inverse=True)
+    index = {name: i for i, name in enumerate(names)}
+    for u in uniq.tolist():
+        if u not in index:
+            index[u] = len(names)
+            names.append(u)
+    return np.array([index[u] for u in uniq.tolist()], dtype=np.int32)[inverse] if len(values) else np.zeros(0, np.int32)
+
+
+def load_signatures(runner, stage: str, in_stage: str, parts, params: Params) -> SignatureSet:
+    """Compute (or reuse) every partition's signatures; the set of them in partition order."""
+    names = {p.key: f"sig-{stable_hash(VERSION, p.key, params.num_perm, params.ngram, params.shingle)}" for p in parts}
+    todo = [p for p in parts if not runner.cache.has_blob(stage, f"{names[p.key]}.npz")]
     args = [(str(runner.cache.root), in_stage, p.key, params, names[p.key], stage) for p in todo]
     with runner.progress(f"{stage}:signatures", len(args)) as tick:
         for _ in runner.engine.imap(signatures_task, args):
             tick(0)
-    cols = defaultdict(list)
-    part_of = []
-    seg_hashes, seg_offsets, base = [], [0], 0
-    for p in parts:
-        with np.load(runner.cache.blob_path(stage, names[p.key]), allow_pickle=True) as z:
-            for k in ("ids", "sigs", "n_shingles", "exact", "lengths", "sources", "dialects"):
-                cols[k].append(z[k])
-            part_of.extend([p.key] * len(z["ids"]))
-            seg_hashes.append(z["seg_hashes"])
-            seg_offsets.extend((z["seg_offsets"][1:] + base).tolist())
-            base += int(z["seg_offsets"][-1])
-    num_perm = params.num_perm
-    out = {k: (np.concatenate(v) if v else np.zeros((0, num_perm) if k == "sigs" else 0)) for k, v in cols.items()}
-    if not cols:
-        out = {"ids": np.zeros(0, object), "sigs": np.zeros((0, num_perm), np.uint32), "n_shingles": np.zeros(0, np.int64),
-               "exact": np.zeros(0, object), "lengths": np.zeros(0, np.int64), "sources": np.zeros(0, object),
-               "dialects": np.zeros(0, object)}
-    out["part_of"] = part_of
-    out["seg_hashes"] = np.concatenate(seg_hashes) if seg_hashes else np.zeros(0, np.int64)
-    out["seg_offsets"] = np.array(seg_offsets, dtype=np.int64)
-    return out
+    path = runner.cache.blob_path
+    return SignatureSet(params.num_perm, [path(stage, f"{names[p.key]}.npy") for p in parts],
+                        [path(stage, f"{names[p.key]}.npz") for p in parts], [p.key for p in parts])
 
 
 # -- candidates, clusters ------------------------------------------------------------------
@@ -241,21 +343,21 @@ def s_curve(s: float, bands: int, rows: int) -> float:
     return 1.0 - (1.0 - s ** rows) ** bands
 
 
-def candidate_pairs(sigs: np.ndarray, eligible: np.ndarray, bands: int, rows: int, engine=None) -> set[tuple[int, int]]:
-    """Pairs of row numbers that share at least one LSH band."""
+def candidate_pairs(sigs, eligible: np.ndarray, bands: int, rows: int, engine=None) -> set[tuple[int, int]]:
+    """Pairs of row numbers that share at least one LSH band (``sigs``: a SignatureSet or an array)."""
+    sigset = sigs if isinstance(sigs, SignatureSet) else SignatureSet.from_arrays(np.asarray(sigs))
     idx = np.flatnonzero(eligible)
     if len(idx) < 2:
         return set()
     if engine is not None and hasattr(engine, "frame_groups"):
-        return _candidates_by_shuffle(sigs, idx, bands, rows, engine)
+        return _candidates_by_shuffle(sigset.band_keys(idx, bands, rows), idx, engine)
     if len(idx) > DATASKETCH_INDEX_LIMIT:
-        return _candidates_by_sorting(sigs, idx, bands, rows)
+        return _candidates_by_sorting(sigset.band_keys(idx, bands, rows), idx)
     from datasketch import LeanMinHash, MinHashLSH
-    lsh = MinHashLSH(num_perm=sigs.shape[1], params=(bands, rows))
+    lsh = MinHashLSH(num_perm=sigset.num_perm, params=(bands, rows))
     with lsh.insertion_session() as session:
-        for i in idx:
-            session.insert(int(i), LeanMinHash(seed=SCHEME_SEED, hashvalues=sigs[i], scheme="affine32"),
-                           check_duplication=False)
+        for i, sig in zip(idx.tolist(), sigset.take(idx)):
+            session.insert(i, LeanMinHash(seed=SCHEME_SEED, hashvalues=sig, scheme="affine32"), check_duplication=False)
     # Every bucket of every band holds documents that agree on that band: the same pairs as
     # querying each document, without building its MinHash a second time.
     pairs = set()
@@ -295,11 +397,10 @@ def bucket_pairs(members: np.ndarray) -> list[tuple[int, int]]:
     return [(int(members[x]), int(members[y])) for x in range(len(members)) for y in range(x + 1, len(members))]
 
 
-def _candidates_by_sorting(sigs: np.ndarray, idx: np.ndarray, bands: int, rows: int) -> set[tuple[int, int]]:
+def _candidates_by_sorting(keys_by_band: np.ndarray, idx: np.ndarray) -> set[tuple[int, int]]:
     """Documents agreeing on a band, found band by band by sorting the band keys."""
     pairs: set[tuple[int, int]] = set()
-    keys_by_band = band_keys(sigs[idx], bands, rows)
-    for band in range(bands):
+    for band in range(keys_by_band.shape[1]):
         keys = keys_by_band[:, band]
         order = np.argsort(keys, kind="stable")
         ordered = keys[order]
@@ -310,9 +411,9 @@ def _candidates_by_sorting(sigs: np.ndarray, idx: np.ndarray, bands: int, rows: 
     return pairs
 
 
-def _candidates_by_shuffle(sigs, idx, bands, rows, engine) -> set[tuple[int, int]]:
+def _candidates_by_shuffle(keys: np.ndarray, idx: np.ndarray, engine) -> set[tuple[int, int]]:
     import pandas as pd
-    keys = band_keys(sigs[idx], bands, rows)
+    bands = keys.shape[1]
     frame = pd.DataFrame({"band": np.repeat(np.arange(bands, dtype=np.int16)[None, :], len(idx), 0).ravel(),
                           "key": keys.ravel(), "doc": np.repeat(idx, bands)})
     groups = engine.frame_groups(frame, ["band", "key"], "doc")
@@ -322,113 +423,126 @@ def _candidates_by_shuffle(sigs, idx, bands, rows, engine) -> set[tuple[int, int
     return pairs
 
 
-class UnionFind:
-    def __init__(self, n: int):
-        self.parent = list(range(n))
-
-    def find(self, x: int) -> int:
-        while self.parent[x] != x:
-            self.parent[x] = self.parent[self.parent[x]]
-            x = self.parent[x]
-        return x
-
-    def union(self, x: int, y: int) -> None:
-        rx, ry = self.find(x), self.find(y)
-        if rx != ry:
-            self.parent[max(rx, ry)] = min(rx, ry)
-
-
-def near_duplicate_pairs(data: dict, threshold: float, params: Params, engine=None, alive: np.ndarray | None = None):
-    sigs = data["sigs"]
-    eligible = data["n_shingles"] >= params.min_shingles
+def near_duplicate_pairs(data, threshold: float, params: Params, engine=None, alive: np.ndarray | None = None):
+    """Candidate pairs whose estimated Jaccard reaches ``threshold``: [(i, j, estimate)], i < j."""
+    data = data if isinstance(data, SignatureSet) else SignatureSet.from_arrays(data["sigs"], data["n_shingles"])
+    eligible = data.n_shingles >= params.min_shingles
     if alive is not None:
         eligible &= alive
     bands, rows = lsh_params(threshold, params.num_perm, params.fp_weight)
-    pairs = np.array(sorted(candidate_pairs(sigs, eligible, bands, rows, engine)), dtype=np.int64).reshape(-1, 2)
+    pairs = np.array(sorted(candidate_pairs(data, eligible, bands, rows, engine)), dtype=np.int64).reshape(-1, 2)
     verified = []
     for start in range(0, len(pairs), 100_000):  # estimated Jaccard of a block of pairs at once
         block = pairs[start:start + 100_000]
-        est = (sigs[block[:, 0]] == sigs[block[:, 1]]).mean(axis=1)
+        est = (data.take(block[:, 0]) == data.take(block[:, 1])).mean(axis=1)
         keep = est >= threshold
         verified.extend(zip(block[keep, 0].tolist(), block[keep, 1].tolist(), est[keep].tolist()))
     return verified, (bands, rows)
 
 
 def clusters_from_pairs(n: int, pairs) -> list[list[int]]:
-    uf = UnionFind(n)
-    for i, j, *_ in pairs:
-        uf.union(i, j)
-    groups = defaultdict(list)
-    for i in range(n):
-        groups[uf.find(i)].append(i)
-    return [g for g in groups.values() if len(g) > 1]
-
-
-def keeper(members: list[int], data: dict, priority: dict[str, int]) -> int:
-    """Source priority list first, then the source's priority, then longest, then earliest."""
-    return min(members, key=lambda i: (priority.get(data["sources"][i], len(priority)), -int(data["src_priority"][i]),
-                                       -int(data["lengths"][i]), i))
+    """Connected components (scipy.sparse.csgraph) of the documents in ``pairs``, each sorted,
+    ordered by their first member; documents in no pair are left out."""
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+    edges = np.array([(p[0], p[1]) for p in pairs], dtype=np.int64).reshape(-1, 2)
+    if not len(edges):
+        return []
+    nodes, inverse = np.unique(edges, return_inverse=True)
+    inverse = inverse.reshape(-1, 2)
+    graph = coo_matrix((np.ones(len(edges), dtype=np.int8), (inverse[:, 0], inverse[:, 1])), shape=(len(nodes),) * 2)
+    _, labels = connected_components(graph, directed=False)
+    order = np.argsort(labels, kind="stable")
+    groups = np.split(nodes[order], np.flatnonzero(np.diff(labels[order])) + 1)
+    return sorted((g.tolist() for g in groups), key=lambda g: g[0])
 
 
 # -- the global stage ------------------------------------------------------------------------
 
+REASONS = ("", "exact-duplicate", "near-duplicate")
+
+
+def keep_ranks(data: SignatureSet, listed: dict[str, int], source_priority: dict[str, int]) -> tuple[np.ndarray, ...]:
+    """Per row, the keys that choose a cluster's kept document, smallest first: position in the
+    recipe's source priority list, then the source's own priority (higher first), then
+    length (longer first), then the row (earlier first)."""
+    listed_rank = np.array([listed.get(s, len(listed)) for s in data.source_names] or [0], dtype=np.int64)[data.source]
+    own = np.array([source_priority.get(s, 0) for s in data.source_names] or [0], dtype=np.int64)[data.source]
+    return listed_rank, -own, -data.lengths, np.arange(len(data))
+
+
 def decide(runner, in_stage: str, parts, params: Params) -> dict[str, Any]:
     data = load_signatures(runner, "dedup", in_stage, parts, params)
-    n = len(data["ids"])
-    src_priority = {s.id: s.priority for s in runner.recipe.sources}
-    data["src_priority"] = np.array([src_priority.get(s, 0) for s in data["sources"]], dtype=np.int64)
-    priority = {s: i for i, s in enumerate(params.source_priority)}
-    removed: dict[int, tuple[str, int, float]] = {}
-    # Exact duplicates first.
-    by_text = defaultdict(list)
-    for i, h in enumerate(data["exact"]):
-        by_text[h].append(i)
-    cluster_rows = []
-    for members in by_text.values():
-        if len(members) > 1:
-            k = keeper(members, data, priority)
-            for m in members:
-                if m != k:
-                    removed[m] = ("exact-duplicate", k, 1.0)
-    alive = np.array([i not in removed for i in range(n)], dtype=bool)
-    pairs, (bands, rows) = near_duplicate_pairs(data, params.threshold, params, getattr(runner, "engine", None), alive)
-    best_sim = {}
-    for i, j, est in pairs:
-        best_sim[i] = max(best_sim.get(i, 0), est)
-        best_sim[j] = max(best_sim.get(j, 0), est)
-    for c, members in enumerate(clusters_from_pairs(n, pairs)):
-        k = keeper(members, data, priority)
-        for m in sorted(members):
-            cluster_rows.append({"cluster": c, "doc_id": data["ids"][m], "source": data["sources"][m],
-                                 "kept": m == k, "kept_id": data["ids"][k], "max_similarity": round(best_sim.get(m, 1.0), 4)})
-            if m != k:
-                removed[m] = ("near-duplicate", k, best_sim.get(m, 0.0))
-    # Boilerplate segments: repeated across many documents of different sources.
-    survivors = [i for i in range(n) if i not in removed]
-    seg_docs: dict[int, set] = defaultdict(set)
-    seg_sources: dict[int, set] = defaultdict(set)
-    offs, sh = data["seg_offsets"], data["seg_hashes"]
-    for i in survivors:
-        for h in set(sh[offs[i]:offs[i + 1]].tolist()):
-            seg_docs[h].add(i)
-            seg_sources[h].add(data["sources"][i])
-    boiler = {h for h, ds in seg_docs.items()
-              if len(ds) >= params.boilerplate_min_docs and len(seg_sources[h]) >= params.boilerplate_min_sources}
+    n = len(data)
+    ranks = keep_ranks(data, {s: i for i, s in enumerate(params.source_priority)},
+                       {s.id: s.priority for s in runner.recipe.sources})
+    reason = np.zeros(n, dtype=np.int8)
+    twin = np.full(n, -1, dtype=np.int64)
+    similarity = np.zeros(n)
+    # Exact duplicates first: sorted by text hash, then by the keep order; the first of each run stays.
+    order = np.lexsort(tuple(reversed((data.exact,) + ranks)))
+    first = np.concatenate([[True], data.exact[order][1:] != data.exact[order][:-1]]) if n else np.zeros(0, bool)
+    run_start = order[np.maximum.accumulate(np.where(first, np.arange(n), 0))] if n else order
+    reason[order[~first]], twin[order[~first]], similarity[order[~first]] = 1, run_start[~first], 1.0
+    pairs, (bands, rows) = near_duplicate_pairs(data, params.threshold, params, getattr(runner, "engine", None),
+                                                alive=reason == 0)
+    best = np.zeros(n)
+    if pairs:
+        edges = np.array(pairs)
+        np.maximum.at(best, edges[:, 0].astype(np.int64), edges[:, 2])
+        np.maximum.at(best, edges[:, 1].astype(np.int64), edges[:, 2])
+    clusters = clusters_from_pairs(n, pairs)
+    keep_key = np.stack(ranks, axis=1) if n else np.zeros((0, 4), np.int64)
+    keepers = [members[int(np.lexsort(keep_key[members].T[::-1])[0])] for members in clusters]
+    for members, k in zip(clusters, keepers):
+        gone = [m for m in members if m != k]
+        reason[gone], twin[gone], similarity[gone] = 2, k, best[gone]
+    removed = np.flatnonzero(reason)
+    named = np.unique(np.concatenate([removed, twin[removed]] + [np.array(c) for c in clusters]).astype(np.int64))
+    name_of = dict(zip(named.tolist(), data.ids(named)))
+    cluster_rows = [{"cluster": c, "doc_id": name_of[m], "source": data.source_names[data.source[m]], "kept": m == k,
+                     "kept_id": name_of[k], "max_similarity": round(float(best[m]), 4)}
+                    for c, (members, k) in enumerate(zip(clusters, keepers)) for m in members]
     decisions: dict[str, dict] = {p.key: {"remove": {}, "boilerplate": []} for p in parts}
-    for i, (reason, k, sim) in sorted(removed.items()):
-        decisions[data["part_of"][i]]["remove"][data["ids"][i]] = [reason, data["ids"][k], round(sim, 4)]
-    for i in survivors:
-        hs = sorted(set(sh[offs[i]:offs[i + 1]].tolist()) & boiler)
-        if hs:
-            decisions[data["part_of"][i]]["boilerplate"] = sorted(set(decisions[data["part_of"][i]]["boilerplate"]) | set(hs))
+    for i in removed.tolist():
+        decisions[data.partition_of(i)]["remove"][name_of[i]] = [REASONS[reason[i]], name_of[int(twin[i])],
+                                                                 round(float(similarity[i]), 4)]
+    boiler = boilerplate_segments(data, reason == 0, params)
+    for key, hashes in boiler.items():
+        decisions[key]["boilerplate"] = hashes
     report = {"bands": bands, "rows": rows, "num_perm": params.num_perm, "threshold": params.threshold,
               "shingle": f"{params.shingle} {params.ngram}-grams", "scheme": "affine32 (own numpy, fmix64)",
               "s_curve": {f"{s:.1f}": round(s_curve(s, bands, rows), 6) for s in np.arange(0.1, 1.0001, 0.1)},
-              "exact_duplicates": sum(1 for r in removed.values() if r[0] == "exact-duplicate"),
-              "near_duplicates": sum(1 for r in removed.values() if r[0] == "near-duplicate"),
-              "boilerplate_segment_types": len(boiler), "clusters": cluster_rows}
+              "exact_duplicates": int(np.sum(reason == 1)), "near_duplicates": int(np.sum(reason == 2)),
+              "boilerplate_segment_types": len(set().union(*boiler.values())) if boiler else 0, "clusters": cluster_rows}
     runner.cache.put_json("dedup", "report.json", report)
     return decisions
+
+
+def _distinct_pairs(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct (a, b) pairs, sorted by a then b."""
+    order = np.lexsort((b, a))
+    a, b = a[order], b[order]
+    new = np.concatenate([[True], (a[1:] != a[:-1]) | (b[1:] != b[:-1])]) if len(a) else np.zeros(0, bool)
+    return a[new], b[new]
+
+
+def boilerplate_segments(data: SignatureSet, survivors: np.ndarray, params: Params) -> dict[str, list[int]]:
+    """Segment hashes found in at least ``boilerplate_min_docs`` surviving documents of at least
+    ``boilerplate_min_sources`` sources, listed per partition that holds them (sorted)."""
+    doc_of = np.repeat(np.arange(len(data)), np.diff(data.seg_offsets))
+    alive = survivors[doc_of]
+    hashes, docs = _distinct_pairs(data.seg_hashes[alive], doc_of[alive])
+    uniq, doc_counts = np.unique(hashes, return_counts=True)
+    by_source, _ = _distinct_pairs(hashes, data.source[docs].astype(np.int64))
+    _, source_counts = np.unique(by_source, return_counts=True)
+    boiler = uniq[(doc_counts >= params.boilerplate_min_docs) & (source_counts >= params.boilerplate_min_sources)]
+    hit = np.isin(hashes, boiler)
+    out: dict[str, list[int]] = {}
+    part = data.part_index(docs[hit])
+    for p in np.unique(part).tolist():
+        out[data.part_keys[p]] = sorted(set(hashes[hit][part == p].tolist()))
+    return out
 
 
 def partition_context(ctx, survey):  # pragma: no cover - global stage; see decide()
@@ -446,7 +560,7 @@ def apply(docs: list[dict], params: Params, decision: dict):
             rows.append(remove_document("dedup", doc, reason, f"estimated Jaccard {sim:.2f} with the kept twin", dup_of=twin))
             continue
         if boiler:
-            keep = [int(hashlib.sha1(normalise_for_hash(s).encode()).hexdigest()[:15], 16) not in boiler for s in doc["segments"]]
+            keep = [segment_hash(s) not in boiler for s in doc["segments"]]
             if not all(keep):
                 for i, k in enumerate(keep):
                     if not k:
@@ -464,7 +578,3 @@ def apply(docs: list[dict], params: Params, decision: dict):
 
 def report_json(cache: Cache) -> dict:
     return cache.get_json("dedup", "report.json")
-
-
-def dumps(x) -> str:  # pragma: no cover
-    return json.dumps(x)

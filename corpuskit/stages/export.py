@@ -1,35 +1,40 @@
 """Export: shards, splits, tokenizer, reports, ledger, datasheet and manifest.
 
-Streams the final partitions once; documents whose source may not be
-redistributed go to ``restricted/`` (or are excluded, by recipe) and never to
-the public shards, splits or tokenizer.
+Each final partition becomes a cached *piece* on the engine's workers (see
+``_pieces``); this module joins the pieces into the output files and merges their
+summaries into the reports, so a re-run rewrites only what changed partitions
+contribute.  Documents whose source may not be redistributed go to
+``restricted/`` (or are excluded, by recipe) and never to the public shards,
+splits or tokenizer.
 """
 from __future__ import annotations
 
-import contextlib
 import csv
-import heapq
+import hashlib
 import io
 import json
-import random
 import sys
 import unicodedata
 from collections import Counter, defaultdict
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
 
-from ..ledger import Counts, LedgerRow, conservation, remove_document
+import numpy as np
+
+from ..ledger import Counts, conservation
 from ..recipe import param
-from ..storage import atomic_gzip_text, atomic_write_text, file_sha256
+from ..storage import atomic_write_text, file_sha256, stable_hash
 from . import tokenizer as tok
 from . import transliterate as translit
-from . import variants as variants_stage
-from ._shards import DocumentSet
-from .qualityfilter import scrub
+from ._pieces import (EMPTY_GZIP, VERSION as PIECES_VERSION, LedgerSettings, LedgerSummary, PieceSettings, ReviewPool,
+                      SampleMerger, destination, document_piece_task, join_sections, ledger_piece_task, read_section,
+                      shard_groups)
 from .split import SPLITS
 
-VERSION = "1"
+__all__ = ["Params", "write_outputs", "destination", "variants_report", "transliteration_report"]
+
+VERSION = "2"
 PACKAGES = ("corpuskit", "fasttext-wheel", "numpy", "sentencepiece", "regex", "datasketch", "pandas", "pyarrow",
             "typer", "rich", "ftfy", "matplotlib", "fonttools", "confusable-homoglyphs", "langcodes", "license-expression")
 
@@ -43,77 +48,6 @@ class Params:
     alpha: float = param(0.3, low=0.0, high=1.0, help="temperature-sampling exponent across dialects")
     dialect_floor: float = param(0.1, low=0, high=1, help="warn when a dialect's share of words is below this")
     medium_floor: float = param(0.05, low=0, high=1, help="warn when a medium's share of words is below this")
-
-
-@dataclass
-class LedgerSummary:
-    """What the export's reports need from the ledger, gathered while it is written."""
-    totals: dict = field(default_factory=dict)
-    removal_examples: dict = field(default_factory=lambda: defaultdict(list))
-    rewrite_by_reason: Counter = field(default_factory=Counter)
-    round_trip: Counter = field(default_factory=Counter)
-    variant_rewrites: Counter = field(default_factory=Counter)
-    nfkc_folds: Counter = field(default_factory=Counter)
-
-
-def write_ledger(path: Path, runner, export_rows: list[LedgerRow], by_source: dict[str, Counter]) -> LedgerSummary:
-    """Stream every stage's ledger rows (stage and partition order) into ``ledger.jsonl.gz``,
-    counting removals per stage and per source (``by_source`` is updated) on the way.
-
-    Removed text stays in the ledger for the team, with personal data scrubbed; reports
-    (which are published) take examples only from redistributable sources."""
-    from .registry import STAGE_ORDER
-    recipe, cache = runner.recipe, runner.cache
-    filter_params = recipe.stages["filter"]
-    scrub_pii = filter_params.pii != "keep"
-    not_public = {s.id for s in recipe.sources if not s.redistributable}
-    led = LedgerSummary()
-
-    def rows_of(stage):
-        if stage == "export":
-            yield from (r.as_dict() for r in export_rows)
-            return
-        for key in runner.last_keys.get(stage, []):
-            yield from cache.read_ledger(stage, key).to_pylist()
-
-    with atomic_gzip_text(path) as stream:
-        for stage in STAGE_ORDER:
-            tot = {"documents": 0, "segments_of_documents": 0, "segments": 0}
-            for r in rows_of(stage):
-                if r.get("text") and scrub_pii:
-                    r["text"] = scrub(r["text"], filter_params.id_patterns)[0]
-                stream.write(json.dumps(r, ensure_ascii=False, sort_keys=True))
-                stream.write("\n")
-                source_tally = by_source.setdefault(r["doc_id"].split(":", 1)[0], Counter())
-                if r["action"] == "removed" and r["unit"] == "document":
-                    tot["documents"] += 1
-                    tot["segments_of_documents"] += r["segments"]
-                    source_tally["documents removed"] += 1
-                    source_tally["segments removed"] += r["segments"]
-                elif r["action"] == "removed" and r["unit"] == "segment":
-                    tot["segments"] += 1
-                    source_tally["segments removed"] += 1
-                if r["action"] == "removed" and r["unit"] in ("document", "segment"):
-                    ex = led.removal_examples[f"{stage}:{r['reason']}"]
-                    if len(ex) < 3 and r.get("text") and r["doc_id"].split(":", 1)[0] not in not_public:
-                        ex.append(r["text"][:120])
-                elif r["action"] == "rewritten":
-                    _count_rewrite(led, stage, r)
-            led.totals[stage] = tot
-    return led
-
-
-def _count_rewrite(led: LedgerSummary, stage: str, r: dict) -> None:
-    led.rewrite_by_reason[f"{stage}:{r['reason']}"] += 1
-    if r["reason"] == "variant-rule":
-        rule, n, dialect = variants_stage.parse_rule_row(r["detail"])
-        led.variant_rewrites[(rule, dialect)] += n
-    elif r["reason"] == "transliterated":
-        led.round_trip[r["detail"].rsplit("; ", 1)[-1]] += 1
-    elif r["reason"] == "normalised" and "nfkc-folded:" in r["detail"]:
-        for item in r["detail"].split("nfkc-folded:", 1)[1].split(",", 1)[0].split():
-            code, n = item.split("x")
-            led.nfkc_folds[code] += int(n)
 
 
 def variants_report(types_by_dialect: dict[str, set[str]], rewrites: Counter) -> list[dict]:
@@ -153,14 +87,6 @@ def transliteration_report(recipe, round_trip: Counter) -> list[dict]:
     return rows
 
 
-def destination(doc: dict, restricted_policy: str) -> str:
-    """'public', 'restricted' or 'excluded': only a document whose consent scope and licence
-    both allow redistribution is public (the flag is set at ingest from the source's metadata)."""
-    if doc["redistributable"] is True:
-        return "public"
-    return "excluded" if restricted_policy == "exclude" else "restricted"
-
-
 SOURCE_COLUMNS = ["source", "medium", "dialect", "output", "documents in", "documents kept", "segments in", "segments kept"]
 
 
@@ -184,41 +110,6 @@ def split_sizes(cells: dict[tuple[str, str], list[int]]) -> list[dict]:
         totals[dialect] += n
     return [{"dialect": dialect, "split": name, "documents": n, "segments": segs, "share": f"{n / totals[dialect]:.3f}"}
             for (dialect, name), (n, segs) in sorted(cells.items())]
-
-
-class LineSample:
-    """At most ``size`` lines, a uniform sample when there are more (reservoir sampling,
-    Vitter's algorithm R, with a fixed seed: the same input gives the same sample)."""
-
-    def __init__(self, size: int, seed: int = 0):
-        self.size, self.seen, self.lines = size, 0, []
-        self._rng = random.Random(seed)
-
-    def add(self, line: str) -> None:
-        self.seen += 1
-        if len(self.lines) < self.size:
-            self.lines.append(line)
-        else:
-            j = self._rng.randrange(self.seen)
-            if j < self.size:
-                self.lines[j] = line
-
-
-class ReviewPool:
-    """The ``size`` segments whose P(target) is closest to the threshold, kept while streaming."""
-
-    def __init__(self, threshold: float | None, size: int):
-        self.threshold, self.size, self.items = threshold, size, []
-
-    def extend(self, scored) -> None:
-        if self.threshold is None or not self.size:
-            return
-        self.items.extend(scored)
-        if len(self.items) > 4 * self.size + 1000:
-            self.items = self.best()
-
-    def best(self) -> list[tuple[str, str, float]]:
-        return heapq.nsmallest(self.size, self.items, key=lambda x: (abs(x[2] - self.threshold), x[0]))
 
 
 def _langid_threshold(runner) -> float | None:
@@ -249,76 +140,47 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
             for f in p.iterdir():
                 if f.is_file():
                     f.unlink()
-    export_rows: list[LedgerRow] = []
-    shard_docs = recipe.corpus.shard_docs
-    stats = balance.Accumulator()
-    script_inventory = balance.ScriptInventory()
-    kept_docs = kept_segs = 0
+    doc_pieces, ledger_pieces = _make_pieces(runner, in_stage, parts)
+    stats, script_inventory = balance.Accumulator(), balance.ScriptInventory()
     by_source: dict[str, Counter] = {s.id: Counter() for s in recipe.sources}
     review = ReviewPool(_langid_threshold(runner), recipe.stages["langid"].review_size)
     split_counts: dict[tuple[str, str], list[int]] = defaultdict(lambda: [0, 0])
-    train_sample, dev_sample = LineSample(TOKENIZER_LINES), defaultdict(lambda: LineSample(DIALECT_LINES))
-    train_by_dialect = defaultdict(lambda: LineSample(DIALECT_LINES))
+    samples = SampleMerger(SAMPLE_LINES)
+    led = LedgerSummary()
     counts = Counts()
-    # Documents stream from the cache into the output files: memory holds one partition.
-    with contextlib.ExitStack() as stack:
-        public = DocumentSet(stack, out / "corpus", "corpus", shard_docs)
-        restricted = DocumentSet(stack, out / "restricted", "corpus", shard_docs) if params.restricted == "separate" else None
-        splits = {name: DocumentSet(stack, out / "splits", name, None) for name in SPLITS}
-        for p in parts:
-            for d in cache.read_docs(in_stage, p.key):
-                counts.docs_in += 1
-                counts.segs_in += len(d["segments"])
-                where = destination(d, params.restricted)
-                if where == "excluded":
-                    export_rows.append(remove_document("export", d, "not-redistributable",
-                                                       f"consent '{d['consent']}' / licence '{d['licence']}'"))
-                    continue
-                kept_docs += 1
-                kept_segs += len(d["segments"])
-                by_source[d["source"]]["documents kept"] += 1
-                by_source[d["source"]]["segments kept"] += len(d["segments"])
-                counts.docs_out += 1
-                counts.segs_out += len(d["segments"])
-                stats.add(d)
-                script_inventory.add(d)
-                if d.get("seg_score"):
-                    review.extend((d["id"], s, sc) for s, sc in zip(d["segments"], d["seg_score"]) if sc is not None)
-                if where == "restricted":
-                    restricted.add(d)
-                    continue
-                public.add(d)
-                split = d["split"] or "train"
-                splits[split].add(d)
-                cell = split_counts[(d.get("dialect") or "unknown", split)]
-                cell[0] += 1
-                cell[1] += len(d["segments"])
-                dialect = d.get("dialect") or "unknown"
-                for seg in d["segments"]:
-                    if split == "train":
-                        train_sample.add(seg)
-                        train_by_dialect[dialect].add(seg)
-                    elif split == "dev":
-                        dev_sample[dialect].add(seg)
-        for doc_set in [public, restricted, *splits.values()]:
-            if doc_set is not None:
-                doc_set.finish()
-    if restricted is not None and restricted.count:
-        atomic_write_text(out / "restricted" / "README.txt",
-                          "Documents whose consent scope or licence does not allow redistribution.\n"
-                          "Keep this folder with the community that holds the material; do not publish it.\n")
-    elif restricted is not None:  # nothing restricted: no folder, as with restricted = "exclude"
-        for f in (out / "restricted").glob("*"):
-            f.unlink()
-        (out / "restricted").rmdir()
-    for r in export_rows:
-        counts.removed[f"{r.unit}:{r.reason}"] += 1
+    for stage, names in ledger_pieces:
+        for name in names:
+            piece = cache.get_json("export", f"{name}.json")
+            led.merge(stage, piece)
+    summaries = []  # what joining needs of each piece; the rest is merged and dropped
+    for name in doc_pieces:  # in partition order
+        summary = {**cache.get_json("export", f"{name}.json"), "_bin": f"{name}.bin"}
+        summaries.append({k: summary[k] for k in ("files", "sections", "sample_groups", "_bin")})
+        counts = counts.add(Counts.from_dict(summary["counts"]))
+        for source, tally in summary["by_source"].items():
+            by_source.setdefault(source, Counter()).update(tally)
+        for dialect, split, n, segs in summary["split_counts"]:
+            split_counts[(dialect, split)][0] += n
+            split_counts[(dialect, split)][1] += segs
+        stats.merge(summary["stats"])
+        script_inventory.merge(summary["scripts"])
+        review.extend(summary["review"])
+        samples.add_priorities(summary["sample_groups"], _priorities(cache, summary))
+        led.merge("export", summary["ledger"])
+    for source, tally in led.by_source.items():
+        by_source.setdefault(source, Counter()).update(tally)
+    kept_docs, kept_segs = counts.docs_out, counts.segs_out
+    public_count, restricted_count = _join_documents(out, cache, doc_pieces, summaries, params, recipe.corpus.shard_docs)
+    split_docs = {name: sum(s["files"].get(name, 0) for s in summaries) for name in SPLITS}
+    _join_ledger(out / "ledger.jsonl.gz", cache, ledger_pieces, doc_pieces, summaries)
 
-    # Tokenizer on the public train split, report on the dev split.
-    tok_info = _tokenizer(out, params, recipe, train_sample.lines,
-                          {k: v.lines for k, v in (dev_sample or train_by_dialect).items()}, "dev" if dev_sample else "train")
+    # Tokenizer on a sample of the public train split, report on the dev split.
+    lines = _sample_lines(cache, doc_pieces, summaries, samples)
+    dev = {g.split(":", 1)[1]: v for g, v in lines.items() if g.startswith("dev:")}
+    train_by_dialect = {g.split(":", 1)[1]: v for g, v in lines.items() if g.startswith("train:")}
+    tok_info = _tokenizer(out, cache, params, recipe, lines.get("train", []), dev or train_by_dialect,
+                          "dev" if dev else "train")
 
-    led = write_ledger(out / "ledger.jsonl.gz", runner, export_rows, by_source)
     ledger_totals, removal_examples, rewrite_by_reason = led.totals, led.removal_examples, led.rewrite_by_reason
     round_trip, variant_rewrites, nfkc_folds = led.round_trip, led.variant_rewrites, led.nfkc_folds
     ingest = reports[0].counts
@@ -356,8 +218,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         "conservation": cons,
     }
     facts = {"recipe": recipe, "summary": summary, "balance": bal, "tokenizer": tok_info, "extra": extra,
-             "public_docs": public.count, "restricted_docs": restricted.count if restricted else 0, "params": params,
-             "splits": {k: v.count for k, v in splits.items() if v.count}, "sources": recipe.sources}
+             "public_docs": public_count, "restricted_docs": restricted_count, "params": params,
+             "splits": {k: v for k, v in split_docs.items() if v}, "sources": recipe.sources}
     ds_text, unanswered = datasheet.render(recipe, facts)
     atomic_write_text(out / "datasheet.md", ds_text)
 
@@ -371,7 +233,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         "counts": summary["stages"], "conservation": cons,
         "tokenizer": tok_info.get("summary", {}), "dedup": extra.get("dedup_params", {}),
         "langid": extra.get("langid_summary", {}),
-        "documents": {"public": public.count, "restricted": restricted.count if restricted else 0},
+        "documents": {"public": public_count, "restricted": restricted_count},
         "sources": source_rows,
         "datasheet_unanswered": unanswered,
     }
@@ -397,20 +259,123 @@ def _version(name: str) -> str:
         return "not installed"
 
 
-TOKENIZER_LINES = 1_000_000   # lines of the train split the tokenizer sees at most (sampled)
-DIALECT_LINES = 50_000        # lines per dialect for the fertility report at most (sampled)
+# Lines the tokenizer is trained on at most, and lines per dialect for its report: bottom-k
+# samples of the train (and dev) split.  300,000 sentences are plenty for vocabularies of a
+# few thousand pieces (common practice; sentencepiece's own sampling option serves the same end).
+TOKENIZER_LINES = 300_000
+DIALECT_LINES = 50_000
+SAMPLE_LINES = {"train": TOKENIZER_LINES, "train:": DIALECT_LINES, "dev:": DIALECT_LINES}
 
 
-def _tokenizer(out: Path, params: Params, recipe, train_lines: list[str], eval_lines: dict[str, list[str]],
+def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[str, list[str]]]]:
+    """Build the pieces not yet in the cache, on the engine's workers.  Returns the document
+    piece names in partition order and, per stage in pipeline order, its ledger piece names."""
+    from .registry import STAGE_ORDER
+    recipe, cache = runner.recipe, runner.cache
+    fparams = recipe.stages["filter"]
+    ledger_settings = LedgerSettings(fparams.pii != "keep", tuple(fparams.id_patterns),
+                                     tuple(sorted(s.id for s in recipe.sources if not s.redistributable)))
+    settings = PieceSettings(recipe.stages["export"].restricted, _langid_threshold(runner),
+                             recipe.stages["langid"].review_size, SAMPLE_LINES, ledger_settings)
+    doc_names = [f"doc-{stable_hash(PIECES_VERSION, VERSION, p.key, settings)}" for p in parts]
+    ledger_pieces = [(stage, [f"ledger-{stable_hash(PIECES_VERSION, stage, key, ledger_settings)}"
+                              for key in runner.last_keys.get(stage, [])])
+                     for stage in STAGE_ORDER if stage != "export"]
+    root = str(cache.root)
+    doc_args = [(root, in_stage, p.key, settings, name) for p, name in zip(parts, doc_names)
+                if not cache.has_blob("export", f"{name}.json")]
+    ledger_args = [(root, stage, key, ledger_settings, name) for stage, names in ledger_pieces
+                   for key, name in zip(runner.last_keys.get(stage, []), names) if not cache.has_blob("export", f"{name}.json")]
+    with runner.progress("export", len(doc_args) + len(ledger_args)) as tick:
+        for _ in runner.engine.imap(document_piece_task, doc_args):
+            tick(0)
+        for _ in runner.engine.imap(ledger_piece_task, ledger_args):
+            tick(0)
+    runner.export_pieces = {"computed": len(doc_args) + len(ledger_args),
+                            "reused": len(doc_names) + sum(len(n) for _, n in ledger_pieces) - len(doc_args) - len(ledger_args)}
+    return doc_names, ledger_pieces
+
+
+def _priorities(cache, summary: dict) -> np.ndarray:
+    data = read_section(cache.blob_path("export", summary["_bin"]), summary["sections"]["sample.priorities"])
+    return np.frombuffer(data, dtype="<u8")
+
+
+def _join_documents(out: Path, cache, names: list[str], summaries: list[dict], params: Params,
+                    shard_docs: int) -> tuple[int, int]:
+    """Public shards and text, restricted documents, and the three splits, from the pieces."""
+    def sections(target: str, kind: str, which=None):
+        chosen = range(len(names)) if which is None else which
+        return [(cache.blob_path("export", f"{names[i]}.bin"), summaries[i]["sections"][f"{target}.{kind}"])
+                for i in chosen if f"{target}.{kind}" in summaries[i]["sections"]]
+
+    sizes = [s["files"].get("public", 0) for s in summaries]
+    for index, group in enumerate(shard_groups(sizes, shard_docs)):
+        join_sections(out / "corpus" / f"corpus-{index:05d}.jsonl.gz", sections("public", "jsonl.gz", group), empty=EMPTY_GZIP)
+    join_sections(out / "corpus" / "corpus.txt", sections("public", "txt"), separator=b"\n")
+    for name in SPLITS:
+        join_sections(out / "splits" / f"{name}.jsonl.gz", sections(name, "jsonl.gz"), empty=EMPTY_GZIP)
+        join_sections(out / "splits" / f"{name}.txt", sections(name, "txt"), separator=b"\n")
+    restricted = sum(s["files"].get("restricted", 0) for s in summaries)
+    folder = out / "restricted"
+    if restricted:
+        sizes = [s["files"].get("restricted", 0) for s in summaries]
+        for index, group in enumerate(shard_groups(sizes, shard_docs)):
+            join_sections(folder / f"corpus-{index:05d}.jsonl.gz", sections("restricted", "jsonl.gz", group))
+        join_sections(folder / "corpus.txt", sections("restricted", "txt"), separator=b"\n")
+        atomic_write_text(folder / "README.txt",
+                          "Documents whose consent scope or licence does not allow redistribution.\n"
+                          "Keep this folder with the community that holds the material; do not publish it.\n")
+    elif folder.exists():  # nothing restricted: no folder, as with restricted = "exclude"
+        for f in folder.glob("*"):
+            f.unlink()
+        folder.rmdir()
+    return sum(s["files"].get("public", 0) for s in summaries), restricted
+
+
+def _join_ledger(path: Path, cache, ledger_pieces, doc_names: list[str], summaries: list[dict]) -> None:
+    """Every stage's rows in stage and partition order, then the export's own rows."""
+    members = [(cache.blob_path("export", f"{name}.gz"), [0, cache.blob_path("export", f"{name}.gz").stat().st_size])
+               for _, names in ledger_pieces for name in names if cache.has_blob("export", f"{name}.gz")]
+    members += [(cache.blob_path("export", f"{name}.bin"), s["sections"]["ledger.gz"])
+                for name, s in zip(doc_names, summaries) if "ledger.gz" in s["sections"]]
+    join_sections(path, members, empty=EMPTY_GZIP)
+
+
+def _sample_lines(cache, names: list[str], summaries: list[dict], samples: SampleMerger) -> dict[str, list[str]]:
+    """The sampled lines per group, in priority order (independent of partition order)."""
+    cutoffs = samples.cutoffs()
+    chosen: dict[str, list[tuple[int, str]]] = defaultdict(list)
+    for name, summary in zip(names, summaries):
+        if not summary["sample_groups"]:
+            continue
+        lines = read_section(cache.blob_path("export", f"{name}.bin"), summary["sections"]["sample.jsonl"])
+        SampleMerger.read(lines.decode("utf-8").splitlines(), summary["sample_groups"], _priorities(cache, summary),
+                          cutoffs, chosen)
+    return {g: [text for _, text in sorted(items)] for g, items in chosen.items()}
+
+
+def _tokenizer(out: Path, cache, params: Params, recipe, train_lines: list[str], eval_lines: dict[str, list[str]],
                evaluated_on: str) -> dict:
     if not train_lines:
         atomic_write_text(out / "tokenizer" / "README.txt", "No public training text; no tokenizer was trained.\n")
         return {"summary": {"trained": False}}
-    model, used = tok.train_tokenizer(train_lines, params.vocab_size, params.model_type, recipe.corpus.letters)
+    # The model and its report depend only on the sampled lines and the settings: reuse them.
+    key = stable_hash("tokenizer", params.vocab_size, params.model_type, recipe.corpus.letters,
+                      hashlib.sha256("\n".join(train_lines).encode("utf-8")).hexdigest(),
+                      {d: hashlib.sha256("\n".join(v).encode("utf-8")).hexdigest() for d, v in sorted(eval_lines.items())})
+    if cache.has_blob("export", f"tokenizer-{key}.json"):
+        model = cache.blob_path("export", f"tokenizer-{key}.model").read_bytes()
+        used, rows = cache.get_json("export", f"tokenizer-{key}.json")
+    else:
+        model, used = tok.train_tokenizer(train_lines, params.vocab_size, params.model_type, recipe.corpus.letters)
+        rows = tok.dialect_report(model, eval_lines)
+        cache.put_blob("export", f"tokenizer-{key}.model", model)
+        # (not put_json: that sorts keys, and the rows' key order is the CSV's column order)
+        cache.put_blob("export", f"tokenizer-{key}.json", json.dumps([used, rows], ensure_ascii=False).encode("utf-8"))
     (out / "tokenizer").mkdir(parents=True, exist_ok=True)
     from ..storage import atomic_write_bytes
     atomic_write_bytes(out / "tokenizer" / "tokenizer.model", model)
-    rows = tok.dialect_report(model, eval_lines)
     atomic_write_text(out / "tokenizer" / "dialects.csv", _csv(rows))
     summary = {"trained": True, "model_type": params.model_type, "vocab_requested": params.vocab_size,
                "vocab_used": used, "character_coverage": 1.0, "normalization": "identity",

@@ -3,19 +3,20 @@
 Documents whose estimated Jaccard similarity reaches ``leak_threshold`` (lower
 than the dedup threshold) are clustered, and whole clusters go to one split,
 so no near-duplicate pair crosses splits (Lee et al. 2022; Lewis et al. 2021).
-Clusters are assigned per dialect, in a seeded order, to the split furthest
-below its target share.
+Each cluster goes to the split its hash falls in (``split_of``), so a
+re-run with new material keeps every earlier assignment.
 """
 from __future__ import annotations
 
 import hashlib
-from collections import defaultdict
 from dataclasses import dataclass
+
+import numpy as np
 
 from ..recipe import param
 from . import dedup
 
-VERSION = "1"
+VERSION = "2"
 SPLITS = ("train", "dev", "test")
 
 
@@ -32,45 +33,51 @@ class Params:
             raise ValueError(f"key 'ratios' must sum to 1, got {sum(self.ratios.values()):g}")
 
 
-def assign(clusters: list[list[int]], dialects: list[str], ratios: dict, seed: int, names: list[str]) -> dict[int, str]:
-    """Split per document index; each cluster whole, per dialect, greedily toward the ratios."""
-    by_dialect = defaultdict(list)
-    for c in clusters:
-        by_dialect[dialects[c[0]]].append(c)
+def split_of(name: str, ratios: dict, seed: int) -> str:
+    """The split of the cluster whose smallest document id is ``name``: a 64-bit hash of the
+    seed and the name, read as a number in [0, 1), placed on the cumulative ratios.
+
+    The choice depends on nothing else, so adding material never moves a document that is
+    already assigned (unless a new document joins its cluster to another), and dialects,
+    sources and media are spread over the splits in proportion (common practice for stable
+    hash-based splits)."""
+    u = int.from_bytes(hashlib.sha256(f"{seed}:{name}".encode()).digest()[:8], "big") / 2.0**64
+    edge = 0.0
+    for split in SPLITS:
+        edge += ratios[split]
+        if u < edge:
+            return split
+    return next(s for s in reversed(SPLITS) if ratios[s] > 0)  # u above a sum rounded below 1
+
+
+def assign(clusters: list[list[int]], names: list[str], ratios: dict, seed: int) -> dict[int, str]:
+    """Split per document index: each cluster whole, by ``split_of`` its smallest name."""
     result = {}
-    for dialect in sorted(by_dialect):
-        group = sorted(by_dialect[dialect],
-                       key=lambda c: hashlib.sha256(f"{seed}:{min(names[i] for i in c)}".encode()).hexdigest())
-        total = sum(len(c) for c in group)
-        size = {s: 0 for s in SPLITS}
-        for c in group:
-            deficit = {s: ratios[s] * total - size[s] for s in SPLITS}
-            choice = max(SPLITS, key=lambda s: (deficit[s], -SPLITS.index(s)))
-            size[choice] += len(c)
-            for i in c:
-                result[i] = choice
+    for c in clusters:
+        choice = split_of(min(names[i] for i in c), ratios, seed)
+        for i in c:
+            result[i] = choice
     return result
 
 
 def decide(runner, in_stage: str, parts, params: Params):
     dparams = runner.recipe.stages["dedup"]
     data = dedup.load_signatures(runner, "split", in_stage, parts, dparams)
-    n = len(data["ids"])
     pairs, _ = dedup.near_duplicate_pairs(data, params.leak_threshold,
                                           dparams.__class__(**{**dparams.__dict__, "min_shingles": 1}),
                                           getattr(runner, "engine", None))
-    clustered = dedup.clusters_from_pairs(n, pairs)
-    seen = {i for c in clustered for i in c}
-    clusters = clustered + [[i] for i in range(n) if i not in seen]
-    names = [str(x) for x in data["ids"]]
-    dialects = [str(x) for x in data["dialects"]]
-    assignment = assign(clusters, dialects, params.ratios, params.seed, names)
-    decisions = {p.key: {} for p in parts}
-    for i in range(n):
-        decisions[data["part_of"][i]][names[i]] = assignment[i]
+    clustered = dedup.clusters_from_pairs(len(data), pairs)
+    members = np.array([i for c in clustered for i in c], dtype=np.int64)
+    name_of = dict(zip(members.tolist(), data.ids(members)))
+    cluster_name = {i: min(name_of[m] for m in c) for c in clustered for i in c}
+    decisions = {}
+    for p, part in enumerate(parts):
+        rows = np.arange(data.offsets[p], data.offsets[p + 1])
+        decisions[part.key] = {name: split_of(cluster_name.get(row, name), params.ratios, params.seed)
+                               for row, name in zip(rows.tolist(), data.ids(rows))}
     runner.cache.put_json("split", "report.json", {"leak_threshold": params.leak_threshold,
                                                    "leak_clusters": len(clustered),
-                                                   "docs_in_leak_clusters": len(seen)})
+                                                   "docs_in_leak_clusters": len(members)})
     return decisions
 
 
