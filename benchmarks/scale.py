@@ -57,7 +57,7 @@ def source_bytes(folder: Path) -> int:
 
 def timed_run(recipe: Path, out: Path, *args: str) -> tuple[float, int, int]:
     """Seconds and peak memory of the run: the proportional set size (PSS) of all its processes
-    summed, sampled every 0.1 s.  PSS charges each shared page (libraries, the parent's
+    summed, sampled every 0.5 s (reading PSS costs the kernel a walk of each process's pages).  PSS charges each shared page (libraries, the parent's
     pages a forked child still shares) once in total; summing plain RSS (also returned) counts
     them once per process."""
     started = time.perf_counter()
@@ -75,7 +75,7 @@ def timed_run(recipe: Path, out: Path, *args: str) -> tuple[float, int, int]:
                 peak[1] = max(peak[1], sum(m.rss for m in infos))
             except psutil.Error:
                 pass
-            time.sleep(0.1)
+            time.sleep(0.5)
 
     t = threading.Thread(target=sample, daemon=True)
     t.start()

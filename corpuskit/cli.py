@@ -188,6 +188,21 @@ def status(recipe: Path = typer.Argument(..., help="the recipe TOML file"),
 
 
 @app.command()
+def prune(out_dir: Path = typer.Option(..., "--out", help="output folder of a finished run")) -> None:
+    """Delete cached results the last complete run did not use (earlier recipes, replaced partitions)."""
+    from .runner import OutputLock
+    from .storage import Cache
+
+    try:
+        with OutputLock(out_dir):
+            files, size = Cache(out_dir).prune()
+    except CorpusError as exc:
+        _fail(exc)
+    out.print(f"removed {files} cached files ({size / 2**20:.1f} MB) that the last complete run did not use",
+              highlight=False, markup=False)
+
+
+@app.command()
 def trace(doc_id: str = typer.Argument(..., help="a document id"),
           out_dir: Path = typer.Option(..., "--out", help="output folder of a finished run")) -> None:
     """Follow one document through every stage and print its fate."""

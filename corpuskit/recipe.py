@@ -55,7 +55,8 @@ class CorpusSpec:
     allow_outside_paths: bool = param(False, help="let source paths leave the recipe's folder")
     max_files_per_source: int = param(20000, low=1, help="refuse globs matching more files")
     partition_docs: int = param(2000, low=1, help="documents per partition")
-    shard_docs: int = param(5000, low=1, help="documents per output shard")
+    shard_docs: int = param(5000, low=1, help="documents per output shard at most; shards hold whole partitions, "
+                                                  "so a partition larger than this is a shard of its own")
 
 
 @dataclass(frozen=True)

@@ -25,7 +25,7 @@ from .recipe import Recipe, SourceSpec
 from .stages.registry import GLOBAL_STAGES, MAP_STAGES, STAGE_ORDER, STAGES
 from .storage import Cache, file_sha256, stable_hash
 
-__all__ = ["Runner", "RunResult", "Partition", "run_map_task", "OutputLock"]
+__all__ = ["Runner", "RunResult", "Partition", "run_map_task", "run_survey_task", "OutputLock"]
 
 
 @dataclass(frozen=True)
@@ -136,6 +136,11 @@ def run_map_task(cache_root: str, stage_name: str, params: Any, ctx: Any, in_sta
     cache.write_partition(stage_name, out_key, out, rows, {"counts": counts.as_dict(), "docs": n_in,
                                                           "seconds": time.perf_counter() - started})
     return {"counts": counts.as_dict()}
+
+
+def run_survey_task(cache_root: str, stage_name: str, params: Any, in_stage: str, in_key: str) -> Any:
+    """One partition's part of a per-source survey (e.g. the lines repeated at page edges)."""
+    return STAGES[stage_name].survey_partition(Cache(Path(cache_root).parent).read_docs(in_stage, in_key), params)
 
 
 def _check_partition(stage_name: str, key: str, n_in: int, segs_in: int, docs_out: list, rows: list) -> None:
@@ -267,9 +272,10 @@ class Runner:
         ctx = None
         if missing and execute:
             ctx = stage.build_context(self.recipe, params, self.cache, ctx_key)
-            for source_id in sorted({p.source for p in missing} & set(surveys)):
-                surveys[source_id] = (surveys[source_id][0],
-                                      self._survey(name, stage, params, in_stage, parts, source_id, surveys[source_id][0]))
+            needed = sorted({p.source for p in missing} & set(surveys))
+            done = self._surveys(name, stage, params, in_stage, parts, {s: surveys[s][0] for s in needed})
+            for source_id in needed:
+                surveys[source_id] = (surveys[source_id][0], done[source_id])
         jobs = [(p, keys[p.key], stage.partition_context(ctx, surveys.get(p.source, ("", None))[1])
                  if hasattr(stage, "partition_context") else ctx) for p in parts]
         out = self._run_partitions(name, in_stage, jobs, report, execute)
@@ -277,15 +283,26 @@ class Runner:
         reports.append(report)
         return out
 
-    def _survey(self, name, stage, params, in_stage, parts, source_id, skey):
-        blob = f"survey-{skey}.json"
-        if self.cache.has_blob(name, blob):
-            return self.cache.get_json(name, blob)
-        partials = [stage.survey_partition(self.cache.read_docs(in_stage, p.key), params)
-                    for p in parts if p.source == source_id]
-        survey = stage.merge_surveys(partials, params)
-        self.cache.put_json(name, blob, survey)
-        return survey
+    def _surveys(self, name, stage, params, in_stage, parts, survey_keys: dict[str, str]) -> dict[str, Any]:
+        """Per source, its survey: from the cache, or from its partitions' parts computed on the
+        workers (all sources at once) and merged in partition order."""
+        result, todo = {}, {}
+        for source_id, skey in survey_keys.items():
+            if self.cache.has_blob(name, f"survey-{skey}.json"):
+                result[source_id] = self.cache.get_json(name, f"survey-{skey}.json")
+            else:
+                todo[source_id] = [p.key for p in parts if p.source == source_id]
+        args = [(str(self.cache.root), name, params, in_stage, key) for keys in todo.values() for key in keys]
+        partials: list = [None] * len(args)
+        for i, partial in self.engine.imap(run_survey_task, args):
+            partials[i] = partial
+        start = 0
+        for source_id, keys in todo.items():
+            survey = stage.merge_surveys(partials[start:start + len(keys)], params)
+            start += len(keys)
+            self.cache.put_json(name, f"survey-{survey_keys[source_id]}.json", survey)
+            result[source_id] = self.cache.get_json(name, f"survey-{survey_keys[source_id]}.json")
+        return result
 
     def _global_stage(self, name: str, in_stage: str, parts: list[Partition], reports: list[StageReport],
                       execute: bool) -> list[Partition]:
@@ -309,6 +326,10 @@ class Runner:
         report.seconds = time.perf_counter() - started
         reports.append(report)
         res = RunResult(self.out, reports, result["conservation"], result["manifest"], warnings=self.warnings)
+        for stage, keys in self.last_keys.items():  # partitions that workers read and wrote
+            for key in keys:
+                self.cache.use(stage, key)
+        self.cache.save_in_use()
         self._write_log(res)
         return res
 

@@ -38,6 +38,9 @@ def stage_status(recipe: Recipe, out: Path) -> list[tuple[str, str, str]]:
             break
         rows.append((name, "fresh", f"{len(keys)} partitions cached"))
         parts = [Partition(p.source, k) for p, k in zip(parts, keys)]
-    for name in list(GLOBAL_STAGES) + ["export"]:
-        rows.append((name, "global", "re-evaluated every run from cached signatures; cheap when nothing changed"))
+    for name in GLOBAL_STAGES:
+        rows.append((name, "global", "re-evaluated every run from cached signatures; recomputes only partitions "
+                                     "whose decisions changed"))
+    rows.append(("export", "global", "joins cached per-partition pieces every run; builds pieces only for partitions "
+                                     "that changed"))
     return rows

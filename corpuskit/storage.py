@@ -130,22 +130,38 @@ def _parquet_bytes(table: pa.Table) -> bytes:
 
 
 class Cache:
-    """The artefact store of one output folder."""
+    """The artefact store of one output folder.
+
+    Every entry the object is asked about is remembered by its stem (stage folder and file
+    name up to the first dot), so that after a complete run the runner can record which
+    entries the current recipe uses (``save_in_use``) and ``prune`` can delete the rest:
+    results of earlier recipes, replaced partitions, old pieces."""
+
+    IN_USE = "in-use.json"
 
     def __init__(self, out: Path):
         self.root = Path(out) / ".cache"
+        self.used: set[tuple[str, str]] = set()
 
     def _dir(self, stage: str) -> Path:
         return self.root / stage
 
+    def use(self, stage: str, name: str) -> None:
+        """Remember that this run needs the entry ``name`` of ``stage`` (see ``prune``)."""
+        if name:
+            self.used.add((stage, name.split(".", 1)[0]))
+
     def done(self, stage: str, key: str) -> bool:
+        self.use(stage, key)
         return (self._dir(stage) / f"{key}.json").exists()
 
     def marker(self, stage: str, key: str) -> dict[str, Any]:
+        self.use(stage, key)
         return json.loads((self._dir(stage) / f"{key}.json").read_text("utf-8"))
 
     def write_partition(self, stage: str, key: str, docs: list[dict], rows: list[LedgerRow],
                         marker: dict[str, Any]) -> None:
+        self.use(stage, key)
         d = self._dir(stage)
         atomic_write_bytes(d / f"{key}.parquet", _parquet_bytes(pa.Table.from_pylist(docs, schema=SCHEMA)))
         ledger = pa.Table.from_pylist([r.as_dict() for r in rows], schema=LEDGER_SCHEMA)
@@ -153,13 +169,16 @@ class Cache:
         atomic_write_text(d / f"{key}.json", json.dumps({"format": FORMAT_VERSION, **marker}, sort_keys=True))
 
     def read_docs(self, stage: str, key: str) -> list[dict]:
+        self.use(stage, key)
         return pq.read_table(self._dir(stage) / f"{key}.parquet", schema=SCHEMA).to_pylist()
 
     def read_ledger(self, stage: str, key: str) -> pa.Table:
+        self.use(stage, key)
         return pq.read_table(self._dir(stage) / f"{key}.ledger.parquet", schema=LEDGER_SCHEMA)
 
     # Side artefacts (models, signatures, surveys): any bytes under a key.
     def blob_path(self, stage: str, name: str) -> Path:
+        self.use(stage, name)
         return self._dir(stage) / name
 
     def has_blob(self, stage: str, name: str) -> bool:
@@ -175,3 +194,23 @@ class Cache:
 
     def get_json(self, stage: str, name: str) -> Any:
         return json.loads(self.blob_path(stage, name).read_text("utf-8"))
+
+    # What the last complete run used, and removing the rest.
+    def save_in_use(self) -> None:
+        atomic_write_text(self.root / self.IN_USE, json.dumps(sorted(f"{s}/{n}" for s, n in self.used)) + "\n")
+
+    def prune(self) -> tuple[int, int]:
+        """Delete cache files the last complete run did not use; (files, bytes) removed."""
+        record = self.root / self.IN_USE
+        if not record.exists():
+            from .errors import RecipeError
+            raise RecipeError(f"{self.root.parent}: no complete run recorded here yet; run the recipe to the end "
+                              "first, then prune.")
+        keep = set(json.loads(record.read_text("utf-8")))
+        files = removed = 0
+        for path in sorted(self.root.glob("*/*")):
+            if path.is_file() and f"{path.parent.name}/{path.name.split('.', 1)[0]}" not in keep:
+                removed += path.stat().st_size
+                path.unlink()
+                files += 1
+        return files, removed

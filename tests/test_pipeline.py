@@ -94,6 +94,12 @@ def test_determinism_and_cache(tmp_path):
     assert export.computed < export.reused
     run(recipe, tmp_path / "fresh", workers=1)
     assert contract_files(tmp_path / "a") == contract_files(tmp_path / "fresh")
+    # Pruning removes what the edited page replaced and nothing the current recipe needs.
+    pruned = CliRunner().invoke(app, ["prune", "--out", str(tmp_path / "a")], env={"COLUMNS": "300"})
+    assert pruned.exit_code == 0 and int(pruned.stdout.split()[1]) >= 9, pruned.output  # one old partition per stage at least
+    after = run(recipe, tmp_path / "a", workers=1)
+    assert all(n == 0 for n in after.executed.values()), after.executed
+    assert contract_files(tmp_path / "a") == contract_files(tmp_path / "fresh")
     del b
 
 

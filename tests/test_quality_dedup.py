@@ -168,7 +168,13 @@ def test_sorting_and_datasketch_index_give_the_same_candidates(monkeypatch):
     with_index = dedup.candidate_pairs(sigs, eligible, bands, rows)
     monkeypatch.setattr(dedup, "DATASKETCH_INDEX_LIMIT", 10)
     by_sorting = dedup.candidate_pairs(sigs, eligible, bands, rows)
-    assert with_index == by_sorting and len(with_index) > 100
+    assert np.array_equal(with_index, by_sorting) and len(with_index) > 100
+    # Verifying band by band (large sets) keeps exactly the verified candidates of the whole set.
+    data = dedup.SignatureSet.from_arrays(sigs)
+    params = dedup.Params(threshold=0.5)
+    whole = dedup.verify_pairs(data, with_index, 0.5)
+    banded, _ = dedup.near_duplicate_pairs(data, 0.5, params)
+    assert len(whole[0]) > 100 and list(banded) == list(zip(*(c.tolist() for c in whole)))
 
 
 def _signature_files(tmp_path, sizes, num_perm=32, seed=5):

@@ -40,6 +40,9 @@ class DaskEngine:
         if self._cluster is not None:
             self._cluster.close()
 
+    def rest(self) -> None:
+        """Workers of a cluster stay up between steps."""
+
     def imap(self, func: Callable, args: Sequence[tuple]) -> Iterator[tuple[int, Any]]:
         from distributed import as_completed
 

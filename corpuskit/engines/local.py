@@ -31,6 +31,11 @@ class LocalEngine:
             self._pool.shutdown(wait=True, cancel_futures=True)
             self._pool = None
 
+    def rest(self) -> None:
+        """Let the workers exit before a long step in this process (the pool starts again on the
+        next ``imap``), so idle workers do not hold memory meanwhile."""
+        self.close()
+
     def _executor(self) -> ProcessPoolExecutor:
         if self._pool is None:
             self._pool = ProcessPoolExecutor(self.workers, mp_context=mp.get_context("forkserver"))

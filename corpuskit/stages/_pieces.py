@@ -216,13 +216,13 @@ class SampleMerger:
             self.priorities[g].append(priorities[start:start + n])
             start += n
 
-    def cutoffs(self) -> dict[str, int]:
-        """Per group, the largest priority that is in the sample."""
-        out = {}
+    def cutoffs(self) -> dict[str, int | None]:
+        """Per group, the largest priority that is in the sample (None: the group is empty)."""
+        out: dict[str, int | None] = {}
         for g, arrays in self.priorities.items():
             allp = np.concatenate(arrays)
             k = min(self.limit(g), len(allp))
-            out[g] = int(np.partition(allp, k - 1)[k - 1]) if k else -1
+            out[g] = int(np.partition(allp, k - 1)[k - 1]) if k else None
         return out
 
     @staticmethod
@@ -230,7 +230,8 @@ class SampleMerger:
         """Add this piece's sampled lines (priority, text) per group to ``into``."""
         start = 0
         for g, n in groups.items():
-            take = int(np.searchsorted(priorities[start:start + n], np.uint64(cutoffs[g]), side="right"))
+            cutoff = cutoffs.get(g)
+            take = 0 if cutoff is None else int(np.searchsorted(priorities[start:start + n], np.uint64(cutoff), side="right"))
             into[g].extend((int(priorities[start + j]), json.loads(lines[start + j])) for j in range(take))
             start += n
 
