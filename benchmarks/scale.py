@@ -57,9 +57,9 @@ def source_bytes(folder: Path) -> int:
 
 def timed_run(recipe: Path, out: Path, *args: str) -> tuple[float, int, int]:
     """Seconds and peak memory of the run: the proportional set size (PSS) of all its processes
-    summed, sampled every 0.5 s (reading PSS costs the kernel a walk of each process's pages).  PSS charges each shared page (libraries, the parent's
-    pages a forked child still shares) once in total; summing plain RSS (also returned) counts
-    them once per process."""
+    summed, sampled every 0.5 s (reading PSS costs the kernel a walk of each process's pages).
+    PSS charges each shared page (libraries, the parent's pages a forked child still shares)
+    once in total; summing plain RSS (also returned) counts them once per process."""
     started = time.perf_counter()
     proc = subprocess.Popen(CORPUSKIT + ["run", str(recipe), "--out", str(out), "--no-progress", *args],
                             stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)

@@ -258,6 +258,7 @@ class Runner:
         report = StageReport(name)
         started = time.perf_counter()
         ctx_key = stage.context_key(self.recipe, params)
+        self.cache.use_context(name, ctx_key)
         if name == "langid":
             self.langid_report = f"report-{ctx_key}.json"
         surveys: dict[str, tuple[str, Any]] = {}
@@ -266,6 +267,7 @@ class Runner:
                 in_keys = [p.key for p in parts if p.source == source.id]
                 skey = stable_hash(name, stage.VERSION, params, ctx_key, in_keys)
                 surveys[source.id] = (skey, None)
+                self.cache.use(name, f"survey-{skey}")
         keys = {p.key: stable_hash(name, stage.VERSION, params, ctx_key,
                                    surveys.get(p.source, ("", None))[0], p.key) for p in parts}
         missing = [p for p in parts if not self.cache.done(name, keys[p.key])]

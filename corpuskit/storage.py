@@ -142,6 +142,7 @@ class Cache:
     def __init__(self, out: Path):
         self.root = Path(out) / ".cache"
         self.used: set[tuple[str, str]] = set()
+        self.contexts: set[tuple[str, str]] = set()
 
     def _dir(self, stage: str) -> Path:
         return self.root / stage
@@ -150,6 +151,12 @@ class Cache:
         """Remember that this run needs the entry ``name`` of ``stage`` (see ``prune``)."""
         if name:
             self.used.add((stage, name.split(".", 1)[0]))
+
+    def use_context(self, stage: str, key: str) -> None:
+        """Remember that entries of ``stage`` named with this context key (a model, its report)
+        are needed, even in a run that did not open them because every partition was cached."""
+        if key:
+            self.contexts.add((stage, key))
 
     def done(self, stage: str, key: str) -> bool:
         self.use(stage, key)
@@ -197,7 +204,9 @@ class Cache:
 
     # What the last complete run used, and removing the rest.
     def save_in_use(self) -> None:
-        atomic_write_text(self.root / self.IN_USE, json.dumps(sorted(f"{s}/{n}" for s, n in self.used)) + "\n")
+        record = {"entries": sorted(f"{s}/{n}" for s, n in self.used),
+                  "contexts": sorted(f"{s}/{k}" for s, k in self.contexts)}
+        atomic_write_text(self.root / self.IN_USE, json.dumps(record, indent=0) + "\n")
 
     def prune(self) -> tuple[int, int]:
         """Delete cache files the last complete run did not use; (files, bytes) removed."""
@@ -206,10 +215,14 @@ class Cache:
             from .errors import RecipeError
             raise RecipeError(f"{self.root.parent}: no complete run recorded here yet; run the recipe to the end "
                               "first, then prune.")
-        keep = set(json.loads(record.read_text("utf-8")))
+        recorded = json.loads(record.read_text("utf-8"))
+        keep = set(recorded["entries"])
+        contexts = [tuple(c.split("/", 1)) for c in recorded["contexts"]]
         files = removed = 0
         for path in sorted(self.root.glob("*/*")):
-            if path.is_file() and f"{path.parent.name}/{path.name.split('.', 1)[0]}" not in keep:
+            stage, stem = path.parent.name, path.name.split(".", 1)[0]
+            if path.is_file() and f"{stage}/{stem}" not in keep and \
+                    not any(stage == s and key in stem for s, key in contexts):
                 removed += path.stat().st_size
                 path.unlink()
                 files += 1

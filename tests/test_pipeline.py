@@ -100,6 +100,11 @@ def test_determinism_and_cache(tmp_path):
     after = run(recipe, tmp_path / "a", workers=1)
     assert all(n == 0 for n in after.executed.values()), after.executed
     assert contract_files(tmp_path / "a") == contract_files(tmp_path / "fresh")
+    # A run that reused everything still records the models it would need: after pruning
+    # again, a further edit is processed with the cached language-ID model.
+    CliRunner().invoke(app, ["prune", "--out", str(tmp_path / "a")])
+    page.write_text(page.read_text() + "Bé sekɛ dená lɔ́.\n")
+    assert run(recipe, tmp_path / "a", workers=1).stage("langid").computed >= 1
     del b
 
 

@@ -51,20 +51,14 @@ class DaskEngine:
         for fut in as_completed(futures):
             yield index[fut.key], fut.result()
 
-    def frame_groups(self, rows, key_columns: list[str], value_column: str):
-        """Shuffle rows by key on the cluster and return groups with more than one member.
+    def frame_map(self, rows, key_column: str, func: Callable, meta: dict):
+        """Shuffle rows by ``key_column`` on the cluster (rows with one key meet in one
+        partition), apply ``func`` to each partition and gather the results.
 
-        Used by near-duplicate detection: band hashes meet on one worker.
+        Used by near-duplicate detection: documents sharing a band hash meet on one worker.
         """
         import dask.dataframe as dd
 
         ddf = dd.from_pandas(rows, npartitions=max(1, self.workers))
-        shuffled = ddf.shuffle(on=key_columns)
-
-        def groups(part):
-            g = part.groupby(key_columns, sort=True)[value_column].agg(list)
-            g = g[g.map(len) > 1]
-            return g.reset_index()
-
-        meta = {**{k: rows[k].dtype for k in key_columns}, value_column: "object"}
-        return shuffled.map_partitions(groups, meta=meta).compute(scheduler=self.client)
+        shuffled = ddf.shuffle(on=key_column)
+        return shuffled.map_partitions(func, meta=meta).compute(scheduler=self.client)

@@ -187,7 +187,6 @@ def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params,
              exact=np.array([text_hash(t) for t in texts], dtype=np.uint64),
              lengths=np.array([sum(map(len, d["segments"])) for d in docs], dtype=np.int64),
              sources=np.array([d["source"] for d in docs], dtype=str),
-             dialects=np.array([d["dialect"] or "" for d in docs], dtype=str),
              seg_hashes=np.array(seg_hashes, dtype=np.int64), seg_offsets=seg_offsets.astype(np.int64))
     atomic_write_bytes(facts_path, buf.getvalue())  # written last: its presence means both are complete
     return out_name
@@ -219,14 +218,12 @@ class SignatureSet:
         cols = defaultdict(list)
         sizes, seg_base = [], 0
         self.source_names: list[str] = []
-        self.dialect_names: list[str] = []
         for path in self.fact_files:
             with np.load(path) as z:
                 sizes.append(len(z["ids"]))
                 for k in ("n_shingles", "lengths", "exact"):
                     cols[k].append(z[k])
                 cols["source"].append(_codes(z["sources"], self.source_names))
-                cols["dialect"].append(_codes(z["dialects"], self.dialect_names))
                 cols["seg_hashes"].append(z["seg_hashes"])
                 cols["seg_offsets"].append(z["seg_offsets"][1:] + seg_base)
                 seg_base += int(z["seg_offsets"][-1])
@@ -242,7 +239,6 @@ class SignatureSet:
         self.lengths = column("lengths", np.int64) if cols["lengths"] else np.zeros(n, np.int64)
         self.exact = column("exact", np.uint64) if cols["exact"] else np.arange(n, dtype=np.uint64)
         self.source = column("source", np.int32) if cols["source"] else np.zeros(n, np.int32)
-        self.dialect = column("dialect", np.int32) if cols["dialect"] else np.zeros(n, np.int32)
         self.seg_hashes = column("seg_hashes", np.int64)
         self.seg_offsets = np.concatenate([[0], column("seg_offsets", np.int64)]).astype(np.int64)
 
@@ -367,8 +363,8 @@ def candidate_pairs(sigs, eligible: np.ndarray, bands: int, rows: int, engine=No
     idx = np.flatnonzero(eligible)
     if len(idx) < 2:
         return np.zeros((0, 2), dtype=np.int64)
-    if engine is not None and hasattr(engine, "frame_groups"):
-        return _pair_array(_candidates_by_shuffle(sigset.band_keys(idx, bands, rows), idx, engine))
+    if engine is not None and hasattr(engine, "frame_map"):
+        return _candidates_by_shuffle(sigset.band_keys(idx, bands, rows), idx, engine, len(sigset))
     if len(idx) > DATASKETCH_INDEX_LIMIT:
         return _candidates_by_sorting(sigset.band_keys(idx, bands, rows), idx, len(sigset))
     from datasketch import LeanMinHash, MinHashLSH
@@ -436,6 +432,8 @@ def band_pairs(keys: np.ndarray, idx: np.ndarray) -> np.ndarray:
     """``bucket_pairs`` of every bucket of one band at once: rows sorted by (key, row), then
     each row is paired with the rows 1, 2, ... places after it in the same bucket (buckets of
     at most FULL_BUCKET members), or with its bucket's first row (larger buckets)."""
+    if len(keys) < 2:
+        return np.zeros((0, 2), dtype=np.int64)
     order = np.lexsort((idx, keys))
     k, members = keys[order], idx[order].astype(np.int64)
     starts_here = np.concatenate([[True], k[1:] != k[:-1]])
@@ -453,16 +451,23 @@ def band_pairs(keys: np.ndarray, idx: np.ndarray) -> np.ndarray:
     return np.concatenate(out)
 
 
-def _candidates_by_shuffle(keys: np.ndarray, idx: np.ndarray, engine) -> set[tuple[int, int]]:
+def _candidates_by_shuffle(keys: np.ndarray, idx: np.ndarray, engine, n: int) -> np.ndarray:
+    """The same pairs as ``_candidates_by_sorting``, with the band keys shuffled across the
+    cluster so that documents sharing a key meet in one partition, which pairs them there.
+    (Each band's keys are hashed from the band number on, so one key column serves all bands.)"""
     import pandas as pd
-    bands = keys.shape[1]
-    frame = pd.DataFrame({"band": np.repeat(np.arange(bands, dtype=np.int16)[None, :], len(idx), 0).ravel(),
-                          "key": keys.ravel(), "doc": np.repeat(idx, bands)})
-    groups = engine.frame_groups(frame, ["band", "key"], "doc")
-    pairs = set()
-    for members in groups["doc"]:
-        pairs.update(bucket_pairs(np.array([int(m) for m in members])))
-    return pairs
+    frame = pd.DataFrame({"key": keys.ravel(), "doc": np.repeat(idx, keys.shape[1]).astype(np.int64)})
+    pairs = engine.frame_map(frame, "key", _partition_pairs, {"left": "int64", "right": "int64"})
+    codes = pairs["left"].to_numpy() * n + pairs["right"].to_numpy()
+    codes.sort()
+    codes = codes[np.concatenate([[True], codes[1:] != codes[:-1]])] if len(codes) else codes
+    return np.stack([codes // n, codes % n], axis=1)
+
+
+def _partition_pairs(part):
+    import pandas as pd
+    pairs = band_pairs(part["key"].to_numpy(), part["doc"].to_numpy())
+    return pd.DataFrame({"left": pairs[:, 0], "right": pairs[:, 1]})
 
 
 class NearPairs:
@@ -488,7 +493,7 @@ def near_duplicate_pairs(data, threshold: float, params: Params, engine=None,
         eligible &= alive
     bands, rows = lsh_params(threshold, params.num_perm, params.fp_weight)
     idx = np.flatnonzero(eligible)
-    if len(idx) > DATASKETCH_INDEX_LIMIT and not (engine is not None and hasattr(engine, "frame_groups")):
+    if len(idx) > DATASKETCH_INDEX_LIMIT and not (engine is not None and hasattr(engine, "frame_map")):
         # Band by band: only verified pairs are kept, never the whole candidate set.
         keys = data.band_keys(idx, bands, rows)
         found = [verify_pairs(data, band_pairs(keys[:, band], idx), threshold) for band in range(bands)]

@@ -19,6 +19,7 @@ from collections import Counter, defaultdict
 from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -141,34 +142,9 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
                 if f.is_file():
                     f.unlink()
     doc_pieces, ledger_pieces = _make_pieces(runner, in_stage, parts)
-    stats, script_inventory = balance.Accumulator(), balance.ScriptInventory()
-    by_source: dict[str, Counter] = {s.id: Counter() for s in recipe.sources}
-    review = ReviewPool(_langid_threshold(runner), recipe.stages["langid"].review_size)
-    split_counts: dict[tuple[str, str], list[int]] = defaultdict(lambda: [0, 0])
-    samples = SampleMerger(SAMPLE_LINES)
-    led = LedgerSummary()
-    counts = Counts()
-    for stage, names in ledger_pieces:
-        for name in names:
-            piece = cache.get_json("export", f"{name}.json")
-            led.merge(stage, piece)
-    summaries = []  # what joining needs of each piece; the rest is merged and dropped
-    for name in doc_pieces:  # in partition order
-        summary = {**cache.get_json("export", f"{name}.json"), "_bin": f"{name}.bin"}
-        summaries.append({k: summary[k] for k in ("files", "sections", "sample_groups", "_bin")})
-        counts = counts.add(Counts.from_dict(summary["counts"]))
-        for source, tally in summary["by_source"].items():
-            by_source.setdefault(source, Counter()).update(tally)
-        for dialect, split, n, segs in summary["split_counts"]:
-            split_counts[(dialect, split)][0] += n
-            split_counts[(dialect, split)][1] += segs
-        stats.merge(summary["stats"])
-        script_inventory.merge(summary["scripts"])
-        review.extend(summary["review"])
-        samples.add_priorities(summary["sample_groups"], _priorities(cache, summary))
-        led.merge("export", summary["ledger"])
-    for source, tally in led.by_source.items():
-        by_source.setdefault(source, Counter()).update(tally)
+    m = merge_pieces(runner, doc_pieces, ledger_pieces)
+    stats, script_inventory, by_source, review = m.stats, m.script_inventory, m.by_source, m.review
+    split_counts, samples, led, counts, summaries = m.split_counts, m.samples, m.ledger, m.counts, m.summaries
     kept_docs, kept_segs = counts.docs_out, counts.segs_out
     public_count, restricted_count = _join_documents(out, cache, doc_pieces, summaries, params, recipe.corpus.shard_docs)
     split_docs = {name: sum(s["files"].get(name, 0) for s in summaries) for name in SPLITS}
@@ -296,6 +272,48 @@ def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[st
     runner.export_pieces = {"computed": len(doc_args) + len(ledger_args),
                             "reused": len(doc_names) + sum(len(n) for _, n in ledger_pieces) - len(doc_args) - len(ledger_args)}
     return doc_names, ledger_pieces
+
+
+@dataclass
+class Merged:
+    """The pieces' summaries combined, in partition order."""
+    stats: Any
+    script_inventory: Any
+    by_source: dict
+    review: ReviewPool
+    split_counts: dict
+    samples: SampleMerger
+    ledger: LedgerSummary
+    counts: Counts
+    summaries: list[dict]   # per document piece, what joining its files needs
+
+
+def merge_pieces(runner, doc_pieces: list[str], ledger_pieces: list[tuple[str, list[str]]]) -> Merged:
+    from ..reports import balance
+    recipe, cache = runner.recipe, runner.cache
+    m = Merged(balance.Accumulator(), balance.ScriptInventory(), {s.id: Counter() for s in recipe.sources},
+               ReviewPool(_langid_threshold(runner), recipe.stages["langid"].review_size),
+               defaultdict(lambda: [0, 0]), SampleMerger(SAMPLE_LINES), LedgerSummary(), Counts(), [])
+    for stage, names in ledger_pieces:
+        for name in names:
+            m.ledger.merge(stage, cache.get_json("export", f"{name}.json"))
+    for name in doc_pieces:
+        summary = {**cache.get_json("export", f"{name}.json"), "_bin": f"{name}.bin"}
+        m.summaries.append({k: summary[k] for k in ("files", "sections", "sample_groups", "_bin")})
+        m.counts = m.counts.add(Counts.from_dict(summary["counts"]))
+        for source, tally in summary["by_source"].items():
+            m.by_source.setdefault(source, Counter()).update(tally)
+        for dialect, split, n, segs in summary["split_counts"]:
+            m.split_counts[(dialect, split)][0] += n
+            m.split_counts[(dialect, split)][1] += segs
+        m.stats.merge(summary["stats"])
+        m.script_inventory.merge(summary["scripts"])
+        m.review.extend(summary["review"])
+        m.samples.add_priorities(summary["sample_groups"], _priorities(cache, summary))
+        m.ledger.merge("export", summary["ledger"])
+    for source, tally in m.ledger.by_source.items():
+        m.by_source.setdefault(source, Counter()).update(tally)
+    return m
 
 
 def _priorities(cache, summary: dict) -> np.ndarray:

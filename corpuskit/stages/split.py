@@ -69,7 +69,10 @@ def decide(runner, in_stage: str, parts, params: Params):
     clustered = dedup.clusters_from_pairs(len(data), pairs)
     members = np.array([i for c in clustered for i in c], dtype=np.int64)
     name_of = dict(zip(members.tolist(), data.ids(members)))
-    cluster_name = {i: min(name_of[m] for m in c) for c in clustered for i in c}
+    cluster_name = {}
+    for c in clustered:
+        smallest = min(name_of[m] for m in c)  # once per cluster: leak clusters can be large
+        cluster_name.update(dict.fromkeys(c, smallest))
     decisions = {}
     for p, part in enumerate(parts):
         rows = np.arange(data.offsets[p], data.offsets[p + 1])
