@@ -303,7 +303,8 @@ class Runner:
             survey = stage.merge_surveys(partials[start:start + len(keys)], params)
             start += len(keys)
             self.cache.put_json(name, f"survey-{survey_keys[source_id]}.json", survey)
-            result[source_id] = self.cache.get_json(name, f"survey-{survey_keys[source_id]}.json")
+            # the same values a later run reads back from the cache (tuples become lists), without the read
+            result[source_id] = json.loads(json.dumps(survey, sort_keys=True, ensure_ascii=False))
         return result
 
     def _global_stage(self, name: str, in_stage: str, parts: list[Partition], reports: list[StageReport],

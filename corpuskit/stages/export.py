@@ -355,8 +355,8 @@ def _join_documents(out: Path, cache, names: list[str], summaries: list[dict], p
 
 def _join_ledger(path: Path, cache, ledger_pieces, doc_names: list[str], summaries: list[dict]) -> None:
     """Every stage's rows in stage and partition order, then the export's own rows."""
-    members = [(cache.blob_path("export", f"{name}.gz"), [0, cache.blob_path("export", f"{name}.gz").stat().st_size])
-               for _, names in ledger_pieces for name in names if cache.has_blob("export", f"{name}.gz")]
+    paths = [cache.blob_path("export", f"{name}.gz") for _, names in ledger_pieces for name in names]
+    members = [(path, [0, path.stat().st_size]) for path in paths if path.exists()]
     members += [(cache.blob_path("export", f"{name}.bin"), s["sections"]["ledger.gz"])
                 for name, s in zip(doc_names, summaries) if "ledger.gz" in s["sections"]]
     join_sections(path, members, empty=EMPTY_GZIP)
