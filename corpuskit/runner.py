@@ -107,10 +107,10 @@ def run_ingest_task(cache_root: str, source: SourceSpec, files: list[tuple[str, 
                     partition_docs: int) -> dict:
     from .stages import ingest
     cache = Cache(Path(cache_root).parent)
-    parts, warnings = ingest.ingest_unit(source, files, partition_docs)
+    warnings: list[str] = []
     keys = []
     total = Counts()
-    for i, (docs, rows) in enumerate(parts):
+    for i, (docs, rows) in enumerate(ingest.ingest_unit(source, files, partition_docs, warnings)):
         key = f"{unit_key}-{i:04d}"
         counts = ingest.counts(docs, rows)
         cache.write_partition("ingest", key, docs, rows, {"counts": counts.as_dict()})

@@ -9,6 +9,8 @@ import errno
 import gzip
 import json
 import os
+import tracemalloc
+import types
 import zlib
 
 import pytest
@@ -18,8 +20,10 @@ from corpuskit import storage
 from corpuskit.api import load_ledger, run
 from corpuskit.errors import CorpusError, DataError, RecipeError
 from corpuskit.readers import READERS
-from corpuskit.readers._decode import TextFile
-from corpuskit.recipe import build, load_recipe
+from corpuskit.readers import _decode
+from corpuskit.readers._decode import TextFile, split_lines
+from corpuskit.recipe import SourceSpec, build, load_recipe
+from corpuskit.stages import ingest
 from corpuskit.variants_table import neutralise_cell
 
 from .conftest import ROOT
@@ -92,6 +96,76 @@ def test_a_single_50_mb_line(tmp_path):
     line = ("kema tabu " * (5 << 20)).encode()
     lines, tf = lines_of(tmp_path, "long.txt", line + b"\nafter\n")
     assert [len(t) for _, t in lines] == [len(line), 5] and not tf.issues
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.binary(max_size=300).map(lambda b: b.replace(b"\x00", b"\n")), st.lists(st.integers(1, 40), max_size=20))
+def test_split_lines_in_any_chunking_equals_one_split(data, cuts):
+    # Reference: Python's bytes.split over the whole data, a final empty piece dropped (as a
+    # file ending in a line break has no line after it).
+    expected = data.split(b"\n")
+    if expected[-1] == b"":
+        expected.pop()
+    chunks, at = [], 0
+    for size in cuts:
+        chunks.append(data[at:at + size])
+        at += size
+    chunks.append(data[at:])
+    pieces = [(start, line) for start, line, _ in split_lines(chunks, b"\n", 1 << 20) if line is not None]
+    assert [line for _, line in pieces] == expected
+    assert all(data[start:start + len(line)] == line for start, line in pieces)
+
+
+def test_reading_in_small_chunks_changes_nothing(tmp_path, monkeypatch):
+    data = ("Kema yɔgí\r\n".encode() + b"bad \xff here\n" + NARE.encode() * 20 + b"\nlast").replace(b"\n", b"\n" * 2)
+    whole, tf_whole = lines_of(tmp_path, "a.txt", data)
+    monkeypatch.setattr(_decode, "CHUNK_BYTES", 3)
+    small, tf_small = lines_of(tmp_path, "a.txt", data)
+    assert small == whole and [r.detail for r in tf_small.issues] == [r.detail for r in tf_whole.issues]
+    assert whole[0] == (1, "Kema yɔgí") and whole[-1] == (7, "last")
+
+
+def test_reading_a_large_file_holds_one_chunk_not_the_file(tmp_path):
+    p = tmp_path / "big.txt"
+    p.write_bytes((NARE * 250 + "\n").encode() * 1600)          # 16 MB
+    tracemalloc.start()
+    try:
+        n = sum(1 for _ in TextFile(p, "big.txt", "s").lines())
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert n == 1600 and peak < 6 << 20   # the file itself is 16 MB
+
+
+def test_a_gzip_file_of_several_members_is_read_whole(tmp_path):
+    # RFC 1952 section 2.2: a gzip file is a series of members; Python's gzip module reads them all.
+    data = gzip.compress(f"{NARE}\n".encode()) + gzip.compress(b"second\nthird\n")
+    lines, tf = lines_of(tmp_path, "m.txt.gz", data)
+    assert [t for _, t in lines] == gzip.decompress(data).decode().splitlines() == [NARE, "second", "third"]
+    assert not tf.issues
+
+
+def test_a_line_longer_than_the_limit_is_read_in_pieces_with_a_row(tmp_path, monkeypatch):
+    monkeypatch.setattr(_decode, "MAX_LINE_BYTES", 10)
+    monkeypatch.setattr(_decode, "CHUNK_BYTES", 4)
+    lines, tf = lines_of(tmp_path, "a.txt", "short\nɔɔɔɔɔɔɔɔɔɔɔɔ\nend\n".encode())
+    assert [n for n, _ in lines] == [1, 2, 2, 2, 3]
+    assert "".join(t for n, t in lines if n == 2) == "ɔ" * 12   # cut between characters, nothing lost
+    assert [(r.reason, r.seg_index) for r in tf.issues] == [("long-line-cut", 2)]
+
+
+def test_ingest_yields_partitions_as_it_reads_with_their_rows(tmp_path):
+    p = tmp_path / "s.jsonl"
+    rows = [json.dumps({"id": str(i), "text": f"{NARE} {i}"}) for i in range(5)]
+    p.write_text("\n".join(rows[:3] + ["not json"] + rows[3:]) + "\n", "utf-8")
+    source = SourceSpec(id="s", path="s.jsonl", format="jsonl", medium="web", licence="CC0-1.0",
+                        consent="redistribution")
+    warnings: list = []
+    parts = ingest.ingest_unit(source, [(str(p), "s.jsonl")], 2, warnings)
+    assert isinstance(parts, types.GeneratorType)
+    sizes = [(len(docs), [r.reason for r in issues]) for docs, issues in parts]
+    # the malformed line 4 is read while the second partition fills
+    assert sizes == [(2, []), (2, ["malformed-json"]), (1, [])]
 
 
 def test_malformed_csv_quoting_skips_the_row_with_a_row(tmp_path):

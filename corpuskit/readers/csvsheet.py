@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import csv
+from collections import deque
 from dataclasses import dataclass
 from typing import Iterator
 
@@ -23,33 +24,38 @@ class Options:
 
 
 def read(tf: TextFile, opts: Options) -> Iterator[dict]:
-    lines = list(tf.lines())
-    if not lines:
+    source = tf.lines()
+    ahead: deque[tuple[int, str]] = deque()   # lines taken for a quoted field and given back
+
+    def next_line() -> tuple[int, str] | None:
+        return ahead.popleft() if ahead else next(source, None)
+
+    first_line = next_line()
+    if first_line is None:
         return
     delim = "\t" if opts.delimiter in ("\\t", "tab") else opts.delimiter
-    header_n, header_line = lines[0]
+    header_n, header_line = first_line
     header = next(csv.reader([header_line], delimiter=delim))
     if opts.text_column not in header:
         from ..errors import DataError
         raise DataError(f"{tf.rel} line {header_n}: no column '{opts.text_column}' in the header "
                         f"({', '.join(header)}); set options.text_column in the recipe.")
     col = {name: i for i, name in enumerate(header)}
-    i = 1
-    while i < len(lines):
-        n, line = lines[i]
-        i += 1
+    while (item := next_line()) is not None:
+        first, line = item
         if not line.strip():
             continue
-        record_text, first, next_i = line, n, i
+        record_text, taken = line, []
         # A quoted field may span lines; take lines until the quotes balance (bounded).
-        while record_text.count('"') % 2 and i < len(lines) and i - next_i < 50:
-            record_text += "\n" + lines[i][1]
-            i += 1
+        while record_text.count('"') % 2 and len(taken) < 50 and (more := next_line()) is not None:
+            taken.append(more)
+            record_text += "\n" + more[1]
         try:
             row = next(csv.reader([record_text], delimiter=delim, strict=True))
         except csv.Error as exc:
-            if i > next_i:  # an unbalanced quote swallowed later rows: skip only this line, read on
-                i, record_text = next_i, line
+            if taken:  # an unbalanced quote swallowed later rows: skip only this line, read on
+                ahead.extendleft(reversed(taken))
+                record_text = line
             tf.issues.append(LedgerRow("ingest", "segment", "removed", f"{tf.file_id}:{first}", first, 1,
                                        "malformed-csv", f"{tf.rel} line {first}: {exc}; row skipped", None,
                                        record_text[:500]))

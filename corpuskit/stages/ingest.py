@@ -16,7 +16,7 @@ from ..readers._decode import TextFile
 from ..recipe import SourceSpec, build
 from ..records import new_document
 
-VERSION = "2"
+VERSION = "3"
 
 
 @dataclass(frozen=True)
@@ -80,18 +80,16 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
         for folder in sorted(by_folder):  # one document per booklet folder, pages in order
             segments, pages = [], []
             for path, rel in by_folder[folder]:
-                tf = TextFile(Path(path), rel, source.id, source.encoding)
+                tf = TextFile(Path(path), rel, source.id, source.encoding, issues, warnings)
                 for d in reader.read(tf, opts):
                     pages.append({"file": rel, "first": len(segments), "count": len(d["segments"])})
                     segments.extend(d["segments"])
-                issues.extend(tf.issues)
-                warnings.extend(tf.warnings)
             if segments:
                 yield new_document(id=f"{source.id}:{folder}", segments=segments,
                                    meta={"folder": folder, "pages": pages}, **base)
         return
     for path, rel in files:
-        tf = TextFile(Path(path), rel, source.id, source.encoding)
+        tf = TextFile(Path(path), rel, source.id, source.encoding, issues, warnings)
         if source.format == "warc":
             tf.lines = lambda: iter(())  # the WARC reader streams records itself
         for d in reader.read(tf, opts):
@@ -100,27 +98,32 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
                 if d.get(name):
                     fields[name] = d[name]
             yield new_document(id=f"{source.id}:{rel}:{d['key']}", segments=d["segments"], meta=d["meta"], **fields)
-        issues.extend(tf.issues)
-        warnings.extend(tf.warnings)
 
 
-def ingest_unit(source: SourceSpec, files: list[tuple[str, str]], partition_docs: int):
-    """Partitions of (documents, ledger rows) for one group of files; at least one partition."""
+def ingest_unit(source: SourceSpec, files: list[tuple[str, str]], partition_docs: int,
+                warnings: list[str]) -> Iterator[tuple[list[dict], list[LedgerRow]]]:
+    """Partitions of (documents, ledger rows) for one group of files, at least one, yielded as
+    they fill: memory holds one partition, not the unit.  Each partition carries the rows of
+    the lines read since the previous one; the last carries the rest."""
     issues: list[LedgerRow] = []
-    warnings: list[str] = []
-    parts, chunk, seen = [], [], set()
+    chunk: list[dict] = []
+    seen: set[int] = set()     # 64-bit digests of the ids so far: a set of ints, not of strings
     for doc in _documents(source, files, issues, warnings):
-        if doc["id"] in seen:  # ids must be unique: make a repeated key unique by position
-            doc["id"] = f"{doc['id']}#{len(seen)}"
-        seen.add(doc["id"])
-        chunk.append(doc)
         if len(chunk) >= partition_docs:
-            parts.append((chunk, []))
+            yield chunk, issues[:]
             chunk = []
-    if chunk or not parts:
-        parts.append((chunk, []))
-    parts[0] = (parts[0][0], issues)
-    return parts, warnings
+            issues.clear()
+        digest = _id_digest(doc["id"])
+        if digest in seen:  # ids must be unique: make a repeated key unique by position
+            doc["id"] = f"{doc['id']}#{len(seen)}"
+            digest = _id_digest(doc["id"])
+        seen.add(digest)
+        chunk.append(doc)
+    yield chunk, issues
+
+
+def _id_digest(doc_id: str) -> int:
+    return int.from_bytes(hashlib.blake2b(doc_id.encode("utf-8"), digest_size=8).digest(), "little")
 
 
 def counts(docs: list[dict], rows: list[LedgerRow]) -> Counts:
