@@ -129,6 +129,14 @@ def _parquet_bytes(table: pa.Table) -> bytes:
     return sink.getvalue()
 
 
+def read_parquet(path: Path, schema: pa.Schema) -> pa.Table:
+    """One Parquet file as a table of ``schema``.  Read as a single file, not through pyarrow's
+    dataset layer (which imports pandas: 0.6 s and tens of MB in every fresh worker)."""
+    with pq.ParquetFile(path) as f:
+        table = f.read()
+    return table if table.schema.equals(schema) else table.cast(schema)
+
+
 class Cache:
     """The artefact store of one output folder.
 
@@ -177,11 +185,11 @@ class Cache:
 
     def read_docs(self, stage: str, key: str) -> list[dict]:
         self.use(stage, key)
-        return pq.read_table(self._dir(stage) / f"{key}.parquet", schema=SCHEMA).to_pylist()
+        return read_parquet(self._dir(stage) / f"{key}.parquet", SCHEMA).to_pylist()
 
     def read_ledger(self, stage: str, key: str) -> pa.Table:
         self.use(stage, key)
-        return pq.read_table(self._dir(stage) / f"{key}.ledger.parquet", schema=LEDGER_SCHEMA)
+        return read_parquet(self._dir(stage) / f"{key}.ledger.parquet", LEDGER_SCHEMA)
 
     # Side artefacts (models, signatures, surveys): any bytes under a key.
     def blob_path(self, stage: str, name: str) -> Path:

@@ -41,7 +41,11 @@ class DaskEngine:
             self._cluster.close()
 
     def rest(self) -> None:
-        """Workers of a cluster stay up between steps."""
+        """Workers of a cluster stay up between steps; they (and this process) trim their heaps."""
+        from .local import trim_memory
+
+        self.client.run(trim_memory)
+        trim_memory()
 
     def imap(self, func: Callable, args: Sequence[tuple]) -> Iterator[tuple[int, Any]]:
         from distributed import as_completed

@@ -1,16 +1,42 @@
 """The local engine: a process pool over partitions, sized to the machine.
 
 Each task reads one partition from the cache and writes its result there, so
-memory is bounded by partition size, not corpus size.
+memory is bounded by partition size, not corpus size.  Workers are forked from
+a server process that has already imported the stages (their pages are shared,
+and a new worker starts in milliseconds), and between stages they exit when one
+has grown beyond REST_ABOVE_MB, so what one stage's tasks leave in a worker's
+heap does not stay for the rest of the run.
 """
 from __future__ import annotations
 
+import ctypes
 import multiprocessing as mp
 import os
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from typing import Any, Callable, Iterator, Sequence
 
-__all__ = ["LocalEngine"]
+__all__ = ["LocalEngine", "trim_memory"]
+
+PRELOAD = ["corpuskit.runner"]   # imported once by the server that forks the workers
+REST_ABOVE_MB = 128              # workers exit between steps when one holds more than this
+
+
+def private_mb(pid: int) -> float:
+    """Memory only this process holds (private pages, in MB), from Linux's smaps_rollup;
+    infinity where that cannot be read, so that callers err towards freeing memory."""
+    try:
+        with open(f"/proc/{pid}/smaps_rollup", encoding="ascii") as f:
+            return sum(int(line.split()[1]) for line in f if line.startswith(("Private_Clean:", "Private_Dirty:"))) / 1024
+    except (OSError, ValueError, IndexError):
+        return float("inf")
+
+
+def trim_memory() -> None:
+    """Hand freed heap pages back to the system (glibc's ``malloc_trim``; elsewhere nothing)."""
+    try:
+        ctypes.CDLL("libc.so.6").malloc_trim(0)
+    except (OSError, AttributeError):  # pragma: no cover - not glibc
+        pass
 
 
 class LocalEngine:
@@ -32,13 +58,18 @@ class LocalEngine:
             self._pool = None
 
     def rest(self) -> None:
-        """Let the workers exit before a long step in this process (the pool starts again on the
-        next ``imap``), so idle workers do not hold memory meanwhile."""
-        self.close()
+        """Between steps: if a worker holds more than REST_ABOVE_MB of its own memory, let the
+        workers exit (the pool starts again on the next ``imap``), so what a stage's tasks left
+        in their heaps does not stay for the rest of the run; trim this process's heap."""
+        if self._pool is not None and max(map(private_mb, self._pool._processes), default=0) > REST_ABOVE_MB:
+            self.close()
+        trim_memory()
 
     def _executor(self) -> ProcessPoolExecutor:
         if self._pool is None:
-            self._pool = ProcessPoolExecutor(self.workers, mp_context=mp.get_context("forkserver"))
+            context = mp.get_context("forkserver")
+            context.set_forkserver_preload(PRELOAD)
+            self._pool = ProcessPoolExecutor(self.workers, mp_context=context)
         return self._pool
 
     def imap(self, func: Callable, args: Sequence[tuple]) -> Iterator[tuple[int, Any]]:

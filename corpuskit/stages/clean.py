@@ -12,18 +12,20 @@ Every removal and join is a ledger row.
 """
 from __future__ import annotations
 
+import hashlib
 import json
 from collections import Counter
 from dataclasses import dataclass
 from typing import Any
 
+import numpy as np
 import regex
 
 from ..ledger import LedgerRow, remove_document, remove_segment
 from ..recipe import param
 from ._base import drop_empty, no_context, no_context_key
 
-VERSION = "3"
+VERSION = "4"
 
 
 @dataclass(frozen=True)
@@ -73,9 +75,15 @@ def _pages(doc: dict) -> list[list[int]]:
 
 
 # -- survey: per-source statistics ---------------------------------------------------------
+# Lines and message texts are counted as 64-bit digests (numpy arrays, not dicts of strings), so
+# a survey of a large source stays small in memory and in the context sent with each task.
 
 def survey_partition(docs: list[dict], params: Params) -> dict:
-    edges, web, vocab, first_text = Counter(), Counter(), Counter(), {}
+    edges: list[int] = []             # per page, its distinct header/footer lines (page numbers left out)
+    web: list[int] = []               # per web page, its distinct lines
+    vocab: Counter = Counter()
+    first_text: dict[int, str] = {}   # message digest -> the first message with that text
+    forwarded: set[int] = set()       # digests of forwarded messages
     pages = web_docs = 0
     h = params.header_lines
     for doc in docs:
@@ -83,36 +91,59 @@ def survey_partition(docs: list[dict], params: Params) -> dict:
             for page in _pages(doc):
                 pages += 1
                 lines = [doc["segments"][i] for i in page]
-                for line in set(line_key(x) for x in lines[:h] + lines[-h:] if x.strip()):
-                    edges[line] += 1
+                keys = {line_key(x) for x in lines[:h] + lines[-h:] if x.strip()}
+                edges.extend(_digest(k) for k in keys if not PAGE_NUMBER.match(k.replace("#", "1")))
             for seg in doc["segments"]:
                 vocab.update(w.casefold() for w in WORD.findall(seg))
                 vocab.update(w.casefold() for w in HYPHENATED.findall(seg))
         elif doc["medium"] == "web":
             web_docs += 1
-            web.update(set(line_key(s) for s in doc["segments"]))
+            web.extend(_digest(k) for k in {line_key(s) for s in doc["segments"]})
         elif doc["medium"] == "typed-message":
-            key = _message_key(doc, params)
-            first_text.setdefault(key, doc["id"])
-    return {"edges": edges, "pages": pages, "web": web, "web_docs": web_docs, "vocab": vocab, "first": first_text}
+            digest = _message_digest(doc, params)
+            first_text.setdefault(digest, doc["id"])
+            if _is_forwarded(doc, params):
+                forwarded.add(digest)
+    return {"edges": np.array(edges, dtype=np.uint64), "pages": pages, "web": np.array(web, dtype=np.uint64),
+            "web_docs": web_docs, "vocab": vocab, "first": first_text, "forwarded": forwarded}
 
 
 def merge_surveys(partials: list[dict], params: Params) -> dict:
-    edges, web, vocab, first = Counter(), Counter(), Counter(), {}
-    pages = web_docs = 0
+    vocab: Counter = Counter()
+    first: dict[int, str] = {}
+    forwarded: set[int] = set()
     for p in partials:
-        edges.update(p["edges"])
-        web.update(p["web"])
         vocab.update(p["vocab"])
-        pages += p["pages"]
-        web_docs += p["web_docs"]
         for k, v in p["first"].items():
             first.setdefault(k, v)
+        forwarded.update(p["forwarded"])
+    pages = sum(p["pages"] for p in partials)
+    web_docs = sum(p["web_docs"] for p in partials)
     need_pages = max(params.header_min_pages, params.header_share * pages)
     need_web = max(params.boilerplate_min_pages, params.boilerplate_share * web_docs)
-    return {"headers": sorted(k for k, n in edges.items() if n >= need_pages and not PAGE_NUMBER.match(k.replace("#", "1"))),
-            "boilerplate": sorted(k for k, n in web.items() if n >= need_web),
-            "vocab": sorted(vocab), "first": first}
+    return {"headers": _repeated([p["edges"] for p in partials], need_pages),
+            "boilerplate": _repeated([p["web"] for p in partials], need_web),
+            "vocab": sorted(vocab),
+            # only what forwarded messages look up: the context sent with each task stays small
+            "first": {_hex(d): first[d] for d in sorted(forwarded)}}
+
+
+def _digest(text: str) -> int:
+    return int.from_bytes(hashlib.blake2b(text.encode("utf-8"), digest_size=8).digest(), "little")
+
+
+def _hex(digest: int) -> str:
+    return f"{digest:016x}"
+
+
+def _line_digest(line: str) -> str:
+    return _hex(_digest(line_key(line)))
+
+
+def _repeated(arrays: list[np.ndarray], need: float) -> list[str]:
+    """The digests (as hex) occurring at least ``need`` times in all arrays together."""
+    values, counts = np.unique(np.concatenate(arrays + [np.zeros(0, np.uint64)]), return_counts=True)
+    return [_hex(int(v)) for v in values[counts >= need]]
 
 
 def partition_context(ctx: Any, survey: dict | None) -> dict | None:
@@ -124,17 +155,18 @@ def partition_context(ctx: Any, survey: dict | None) -> dict | None:
 def apply(docs: list[dict], params: Params, survey: dict | None):
     rows: list[LedgerRow] = []
     survey = survey or {"headers": [], "boilerplate": [], "vocab": [], "first": {}}
+    headers, vocab, boilerplate = set(survey["headers"]), set(survey["vocab"]), set(survey["boilerplate"])
     out = []
     for doc in docs:
         medium = doc["medium"]
         if medium == "speech-transcript":
             doc = clean_transcript(doc, params, rows)
         elif medium == "print-ocr":
-            doc = clean_ocr(doc, params, set(survey["headers"]), set(survey["vocab"]), rows)
+            doc = clean_ocr(doc, params, headers, vocab, rows)
         elif medium == "typed-message":
             doc = clean_message(doc, params, survey["first"], rows)
         elif medium == "web":
-            doc = clean_web(doc, params, set(survey["boilerplate"]), rows)
+            doc = clean_web(doc, params, boilerplate, rows)
         if doc is not None:
             doc["original"] = list(doc["segments"])
             out.append(doc)
@@ -230,7 +262,7 @@ def clean_ocr(doc: dict, params: Params, headers: set[str], vocab: set[str], row
             where = "header" if pos in top else "footer"
             if PAGE_NUMBER.match(line):
                 drop[pos] = ("page-number", f"page number at the {'top' if where == 'header' else 'bottom'} of page {p + 1}")
-            elif line_key(line) in headers:
+            elif _line_digest(line) in headers:
                 drop[pos] = (f"running-{where}", f"repeated at the {'top' if where == 'header' else 'bottom'} of pages")
     meta = json.loads(doc["meta"])
     doc = _drop(doc, drop, rows)
@@ -275,15 +307,25 @@ def _message_key(doc: dict, params: Params) -> str:
     return " ".join(text.casefold().split())
 
 
+def _message_digest(doc: dict, params: Params) -> int:
+    return _digest(_message_key(doc, params))
+
+
+def _is_forwarded(doc: dict, params: Params) -> bool:
+    return bool(doc["segments"]) and bool(regex.match(params.forward_pattern, doc["segments"][0], flags=regex.I))
+
+
 def clean_message(doc: dict, params: Params, first: dict[str, str], rows: list[LedgerRow]) -> dict | None:
+    """``first`` maps the digest (16 hex digits) of a forwarded message's text to the first
+    message with that text."""
     text = " ".join(doc["segments"]).strip()
     if regex.match(params.system_pattern, text, flags=regex.I):
         rows.append(remove_document("clean", doc, "system-message", text[:200]))
         return None
     meta = json.loads(doc["meta"])
-    if regex.match(params.forward_pattern, doc["segments"][0], flags=regex.I):
+    if _is_forwarded(doc, params):
         meta["forwarded"] = True
-        original = first.get(_message_key(doc, params))
+        original = first.get(_hex(_message_digest(doc, params)))
         if original and original != doc["id"]:
             rows.append(remove_document("clean", doc, "forwarded-copy", "a forwarded copy of an earlier message", dup_of=original))
             return None
@@ -300,6 +342,6 @@ def clean_web(doc: dict, params: Params, boilerplate: set[str], rows: list[Ledge
     for i, seg in enumerate(doc["segments"]):
         if len(NAV_SEPARATORS.findall(seg)) >= 2 and len(seg) < 200:
             drop[i] = ("navigation", "a navigation line")
-        elif line_key(seg) in boilerplate:
+        elif _line_digest(seg) in boilerplate:
             drop[i] = ("web-boilerplate", "repeated across pages of the source")
     return _drop(doc, drop, rows)

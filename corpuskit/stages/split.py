@@ -16,7 +16,7 @@ import numpy as np
 from ..recipe import param
 from . import dedup
 
-VERSION = "2"
+VERSION = "3"
 SPLITS = ("train", "dev", "test")
 
 
@@ -73,11 +73,12 @@ def decide(runner, in_stage: str, parts, params: Params):
     for c in clustered:
         smallest = min(name_of[m] for m in c)  # once per cluster: leak clusters can be large
         cluster_name.update(dict.fromkeys(c, smallest))
-    decisions = {}
-    for p, part in enumerate(parts):
-        rows = np.arange(data.offsets[p], data.offsets[p + 1])
-        decisions[part.key] = {name: split_of(cluster_name.get(row, name), params.ratios, params.seed)
-                               for row, name in zip(rows.tolist(), data.ids(rows))}
+    # A partition's decision names the cluster of each of its documents that is in one; every
+    # other document is a cluster of its own, placed by its own id when the partition is written.
+    part_of = np.searchsorted(data.offsets, members, side="right") - 1
+    decisions: dict[str, dict[str, str]] = {part.key: {} for part in parts}
+    for row, p in zip(members.tolist(), part_of.tolist()):
+        decisions[parts[p].key][name_of[row]] = cluster_name[row]
     runner.cache.put_json("split", "report.json", {"leak_threshold": params.leak_threshold,
                                                    "leak_clusters": len(clustered),
                                                    "docs_in_leak_clusters": len(members)})
@@ -85,6 +86,7 @@ def decide(runner, in_stage: str, parts, params: Params):
 
 
 def apply(docs: list[dict], params: Params, decision: dict):
+    """``decision`` maps a document in a near-duplicate cluster to the cluster's name."""
     for doc in docs:
-        doc["split"] = decision.get(doc["id"], "train")
+        doc["split"] = split_of(decision.get(doc["id"], doc["id"]), params.ratios, params.seed)
     return docs, []
