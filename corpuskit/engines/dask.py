@@ -20,13 +20,19 @@ class DaskEngine:
         except ImportError:  # pragma: no cover - the extra is part of `make` set-up
             from ..errors import RecipeError
             raise RecipeError("--engine dask needs the 'dask' extra; install with pip install 'corpuskit[dask]'.") from None
+        import dask
+
         self.workers = workers or 2
         self._cluster = None
         if scheduler:
             self.client = Client(scheduler)
         else:
-            self._cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
-                                         dashboard_address=":0", silence_logs=40)
+            # The workers' statistical profiler samples the running task's stack every 10 ms; on
+            # this pure-Python work it cost a third of the run time (20 MB, one worker: stages
+            # 45-60% slower than the local engine), so a cluster started here runs without it.
+            with dask.config.set({"distributed.worker.profile.enabled": False}):
+                self._cluster = LocalCluster(n_workers=self.workers, threads_per_worker=1, processes=True,
+                                             dashboard_address=":0", silence_logs=40)
             self.client = Client(self._cluster)
 
     def __enter__(self) -> "DaskEngine":
