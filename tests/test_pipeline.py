@@ -1,6 +1,7 @@
 """End-to-end behaviour of the runner: conservation, determinism, caching, resumption, the CLI."""
 import hashlib
 import json
+import os
 import signal
 import subprocess
 import sys
@@ -232,3 +233,26 @@ def test_dask_engine_gives_byte_identical_output(tmp_path, demo_run):
     result = run(recipe, tmp_path / "dask", engine="dask", workers=2)
     assert result.stage("dedup").computed >= 1
     assert contract_files(result.out) == contract_files(demo_run.out)
+
+
+def test_workers_exit_between_steps_only_when_they_have_grown(monkeypatch):
+    from corpuskit.engines import local
+
+    assert 1 < local.private_mb(os.getpid()) < float("inf")
+    assert local.private_mb(2**22 + 1) == float("inf")  # above Linux's largest pid: unreadable
+    engine = local.LocalEngine(2)
+    try:
+        assert len(list(engine.imap(os.getpid, [(), (), ()]))) == 3
+        pool = engine._pool
+        monkeypatch.setattr(local, "REST_ABOVE_MB", 1 << 20)
+        engine.rest()
+        assert engine._pool is pool            # small workers stay
+        monkeypatch.setattr(local, "REST_ABOVE_MB", 0)
+        engine.rest()
+        assert engine._pool is None            # grown workers exit; the next imap starts a pool
+        assert len(list(engine.imap(os.getpid, [(), ()]))) == 2 and engine._pool is not None
+        monkeypatch.setattr(local, "REST_ABOVE_MB", 1 << 20)
+        engine.rest(idle=True)
+        assert engine._pool is None            # before a long step in this process, all exit
+    finally:
+        engine.close()

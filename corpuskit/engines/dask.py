@@ -46,7 +46,7 @@ class DaskEngine:
         if self._cluster is not None:
             self._cluster.close()
 
-    def rest(self) -> None:
+    def rest(self, idle: bool = False) -> None:
         """Workers of a cluster stay up between steps; they (and this process) trim their heaps."""
         from .local import trim_memory
 

@@ -57,11 +57,12 @@ class LocalEngine:
             self._pool.shutdown(wait=True, cancel_futures=True)
             self._pool = None
 
-    def rest(self) -> None:
-        """Between steps: if a worker holds more than REST_ABOVE_MB of its own memory, let the
-        workers exit (the pool starts again on the next ``imap``), so what a stage's tasks left
-        in their heaps does not stay for the rest of the run; trim this process's heap."""
-        if self._pool is not None and max(map(private_mb, self._pool._processes), default=0) > REST_ABOVE_MB:
+    def rest(self, idle: bool = False) -> None:
+        """Between steps: let the workers exit (the pool starts again on the next ``imap``) if
+        one holds more than REST_ABOVE_MB of its own memory, so what a stage's tasks left in
+        their heaps does not stay for the rest of the run, or if they would sit ``idle`` through
+        a long step in this process; trim this process's heap."""
+        if self._pool is not None and (idle or max(map(private_mb, self._pool._processes), default=0) > REST_ABOVE_MB):
             self.close()
         trim_memory()
 

@@ -335,7 +335,7 @@ def load_signatures(runner, stage: str, in_stage: str, parts, params: Params) ->
         for _ in runner.engine.imap(signatures_task, args):
             tick(0)
     if hasattr(runner.engine, "rest"):
-        runner.engine.rest()  # what follows runs in this process
+        runner.engine.rest(idle=True)  # what follows runs in this process
     path = runner.cache.blob_path
     return SignatureSet(params.num_perm, [path(stage, f"{names[p.key]}.npy") for p in parts],
                         [path(stage, f"{names[p.key]}.npz") for p in parts], [p.key for p in parts])

@@ -268,7 +268,7 @@ def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[st
         for _ in runner.engine.imap(ledger_piece_task, ledger_args):
             tick(0)
     if hasattr(runner.engine, "rest"):
-        runner.engine.rest()  # joining and the tokenizer run in this process
+        runner.engine.rest(idle=True)  # joining and the tokenizer run in this process
     runner.export_pieces = {"computed": len(doc_args) + len(ledger_args),
                             "reused": len(doc_names) + sum(len(n) for _, n in ledger_pieces) - len(doc_args) - len(ledger_args)}
     return doc_names, ledger_pieces
