@@ -111,7 +111,7 @@ def test_split_lines_in_any_chunking_equals_one_split(data, cuts):
         chunks.append(data[at:at + size])
         at += size
     chunks.append(data[at:])
-    pieces = [(start, line) for start, line, _ in split_lines(chunks, b"\n", 1 << 20) if line is not None]
+    pieces = [(start, line) for start, line, _ in split_lines(chunks, b"\n", 1 << 20)]
     assert [line for _, line in pieces] == expected
     assert all(data[start:start + len(line)] == line for start, line in pieces)
 

@@ -180,8 +180,6 @@ class TextFile:
                 n += 1
             elif continued == 1:
                 self._note_cut(n)
-            if raw is None:  # the file's end: a last line without a line break
-                break
             raw = raw[:-1] if raw.endswith(b"\r") else raw
             try:
                 line = raw.decode(encoding)
@@ -190,7 +188,7 @@ class TextFile:
                 self.issues.append(rewrite("ingest", self.file_id, n, "undecodable-bytes",
                                            f"{self.rel} line {n} byte offset {skip + start + exc.start}: "
                                            f"bytes not valid {encoding} replaced by U+FFFD"))
-            yield n, self._clean(line, n, start)
+            yield n, self._clean(line, n, skip + start)
 
     def _wide_lines(self, chunks: Iterator[bytes], encoding: str) -> Iterator[tuple[int, str]]:
         """UTF-16 and UTF-32: decoded incrementally, then split; every piece after the last
@@ -234,8 +232,7 @@ def split_lines(chunks: Iterable, sep, limit: int, keep_last: bool = False) -> I
 
     A line longer than ``limit`` comes in pieces (cut before a UTF-8 continuation byte); the
     second and later pieces carry a continuation count of 1, 2, ...  After the last separator,
-    the rest is a line if it is not empty (or always, with ``keep_last``); without it the stream
-    ends with ``(offset, None, 0)``.
+    the rest is a line if it is not empty (or always, with ``keep_last``).
     """
     pending: list = []
     size = start = continued = 0
@@ -259,8 +256,6 @@ def split_lines(chunks: Iterable, sep, limit: int, keep_last: bool = False) -> I
     line = join(pending)
     if line or keep_last or continued:
         yield start, line, continued
-    else:
-        yield start, None, 0
 
 
 def _cut_point(blob, limit: int) -> int:
