@@ -223,7 +223,7 @@ class Runner:
         with self.progress("ingest", len(args)) as tick:
             for _, marker in self.engine.imap(run_ingest_task, args):
                 tick(Counts.from_dict(marker["counts"]).docs_out)
-        self._rest(todo)
+        self._rest(bool(todo))
         parts = []
         for source, _, key in units:
             marker = self.cache.get_json("ingest", f"{key}.unit.json")
@@ -246,7 +246,7 @@ class Runner:
         with self.progress(name, len(args)) as tick:
             for i, result in self.engine.imap(run_map_task, args):
                 tick(result["counts"]["docs_in"])
-        self._rest(todo)
+        self._rest(bool(todo))
         for p, k, _ in jobs:
             report.counts = report.counts.add(Counts.from_dict(self.cache.marker(name, k)["counts"]))
         report.computed, report.reused = len(todo), len(jobs) - len(todo)
@@ -287,10 +287,10 @@ class Runner:
         reports.append(report)
         return out
 
-    def _rest(self, tasks: list) -> None:
-        """After a step that ran tasks: the engine frees what it can (large workers exit, heaps
+    def _rest(self, worked: bool) -> None:
+        """After a step that did work: the engine frees what it can (large workers exit, heaps
         are trimmed), so a stage's leftovers do not add up over the run."""
-        if tasks and hasattr(self.engine, "rest"):
+        if worked and hasattr(self.engine, "rest"):
             self.engine.rest()
 
     def _surveys(self, name, stage, params, in_stage, parts, survey_keys: dict[str, str]) -> dict[str, Any]:
@@ -306,7 +306,7 @@ class Runner:
         partials: list = [None] * len(args)
         for i, partial in self.engine.imap(run_survey_task, args):
             partials[i] = partial
-        self._rest(args)
+        self._rest(bool(args))
         start = 0
         for source_id, keys in todo.items():
             survey = stage.merge_surveys(partials[start:start + len(keys)], params)
@@ -323,7 +323,7 @@ class Runner:
         report = StageReport(name)
         started = time.perf_counter()
         decisions = stage.decide(self, in_stage, parts, params)
-        self._rest([None])
+        self._rest(True)
         jobs = [(p, stable_hash(name, stage.VERSION, params, p.key, decisions[p.key]), decisions[p.key]) for p in parts]
         out = self._run_partitions(name, in_stage, jobs, report, execute)
         report.seconds = time.perf_counter() - started

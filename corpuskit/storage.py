@@ -24,7 +24,7 @@ from .errors import DataError
 from .ledger import LEDGER_SCHEMA, LedgerRow
 from .records import SCHEMA
 
-__all__ = ["stable_hash", "file_sha256", "atomic_write_bytes", "atomic_write_text", "Cache",
+__all__ = ["stable_hash", "digest64", "file_sha256", "atomic_write_bytes", "atomic_write_text", "Cache",
            "write_gzip_lines"]
 
 FORMAT_VERSION = "1"
@@ -34,6 +34,12 @@ def stable_hash(*parts: Any) -> str:
     """SHA-256 of a JSON rendering of ``parts`` (sorted keys), shortened to 32 hex digits."""
     blob = json.dumps(parts, sort_keys=True, ensure_ascii=False, default=_default).encode("utf-8")
     return hashlib.sha256(blob).hexdigest()[:32]
+
+
+def digest64(text: str) -> int:
+    """A 64-bit BLAKE2b digest of ``text`` as an integer: for counting or matching many strings
+    (lines, words, ids) as small numbers."""
+    return int.from_bytes(hashlib.blake2b(text.encode("utf-8"), digest_size=8).digest(), "little")
 
 
 def _default(obj: Any) -> Any:

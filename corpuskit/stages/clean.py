@@ -12,7 +12,6 @@ Every removal and join is a ledger row.
 """
 from __future__ import annotations
 
-import hashlib
 import json
 from collections import Counter
 from dataclasses import dataclass
@@ -23,6 +22,7 @@ import regex
 
 from ..ledger import LedgerRow, remove_document, remove_segment
 from ..recipe import param
+from ..storage import digest64
 from ._base import drop_empty, no_context, no_context_key
 
 VERSION = "4"
@@ -92,13 +92,13 @@ def survey_partition(docs: list[dict], params: Params) -> dict:
                 pages += 1
                 lines = [doc["segments"][i] for i in page]
                 keys = {line_key(x) for x in lines[:h] + lines[-h:] if x.strip()}
-                edges.extend(_digest(k) for k in keys if not PAGE_NUMBER.match(k.replace("#", "1")))
+                edges.extend(digest64(k) for k in keys if not PAGE_NUMBER.match(k.replace("#", "1")))
             for seg in doc["segments"]:
                 vocab.update(w.casefold() for w in WORD.findall(seg))
                 vocab.update(w.casefold() for w in HYPHENATED.findall(seg))
         elif doc["medium"] == "web":
             web_docs += 1
-            web.extend(_digest(k) for k in {line_key(s) for s in doc["segments"]})
+            web.extend(digest64(k) for k in {line_key(s) for s in doc["segments"]})
         elif doc["medium"] == "typed-message":
             digest = _message_digest(doc, params)
             first_text.setdefault(digest, doc["id"])
@@ -128,16 +128,12 @@ def merge_surveys(partials: list[dict], params: Params) -> dict:
             "first": {_hex(d): first[d] for d in sorted(forwarded)}}
 
 
-def _digest(text: str) -> int:
-    return int.from_bytes(hashlib.blake2b(text.encode("utf-8"), digest_size=8).digest(), "little")
-
-
 def _hex(digest: int) -> str:
     return f"{digest:016x}"
 
 
 def _line_digest(line: str) -> str:
-    return _hex(_digest(line_key(line)))
+    return _hex(digest64(line_key(line)))
 
 
 def _repeated(arrays: list[np.ndarray], need: float) -> list[str]:
@@ -308,7 +304,7 @@ def _message_key(doc: dict, params: Params) -> str:
 
 
 def _message_digest(doc: dict, params: Params) -> int:
-    return _digest(_message_key(doc, params))
+    return digest64(_message_key(doc, params))
 
 
 def _is_forwarded(doc: dict, params: Params) -> bool:

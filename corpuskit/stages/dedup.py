@@ -23,7 +23,7 @@ import numpy as np
 
 from ..ledger import LedgerRow, remove_document, remove_segment
 from ..recipe import param
-from ..storage import Cache, atomic_write_bytes, stable_hash
+from ..storage import Cache, atomic_write_bytes, digest64, stable_hash
 
 VERSION = "2"
 MASK32 = np.uint64(0xFFFFFFFF)
@@ -70,7 +70,7 @@ def shingle_hashes(text: str, ngram: int, unit: str = "char") -> np.ndarray:
     text = normalise_for_hash(text)
     if unit == "word":
         words = text.split(" ")
-        codes = np.array([int.from_bytes(hashlib.blake2b(w.encode(), digest_size=8).digest(), "little") for w in words],
+        codes = np.array([digest64(w) for w in words],
                          dtype=np.uint64) if text else np.zeros(0, np.uint64)
     else:
         codes = np.frombuffer(text.encode("utf-32-le"), dtype=np.uint32).astype(np.uint64)

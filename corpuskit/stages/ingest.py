@@ -15,6 +15,7 @@ from ..readers import READERS
 from ..readers._decode import TextFile
 from ..recipe import SourceSpec, build
 from ..records import new_document
+from ..storage import digest64
 
 VERSION = "3"
 
@@ -113,17 +114,13 @@ def ingest_unit(source: SourceSpec, files: list[tuple[str, str]], partition_docs
             yield chunk, issues[:]
             chunk = []
             issues.clear()
-        digest = _id_digest(doc["id"])
+        digest = digest64(doc["id"])
         if digest in seen:  # ids must be unique: make a repeated key unique by position
             doc["id"] = f"{doc['id']}#{len(seen)}"
-            digest = _id_digest(doc["id"])
+            digest = digest64(doc["id"])
         seen.add(digest)
         chunk.append(doc)
     yield chunk, issues
-
-
-def _id_digest(doc_id: str) -> int:
-    return int.from_bytes(hashlib.blake2b(doc_id.encode("utf-8"), digest_size=8).digest(), "little")
 
 
 def counts(docs: list[dict], rows: list[LedgerRow]) -> Counts:
