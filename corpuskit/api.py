@@ -39,7 +39,7 @@ def load_corpus(out, split: str | None = None, restricted: bool = False) -> pd.D
 
 
 def load_ledger(out) -> pd.DataFrame:
-    return _jsonl([Path(out) / "ledger.jsonl.gz"])
+    return _jsonl([Path(out) / "private" / "ledger.jsonl.gz"])
 
 
 def load_report(out, name: str) -> pd.DataFrame:

@@ -93,9 +93,10 @@ def _where(result) -> None:
     out.print(f"Splits:     {o / 'splits'}", highlight=False, markup=False)
     out.print(f"Tokenizer:  {o / 'tokenizer'}", highlight=False, markup=False)
     out.print(f"Reports:    {o / 'reports'}  (open balance.html)", highlight=False, markup=False)
-    out.print(f"Ledger:     {o / 'ledger.jsonl.gz'}", highlight=False, markup=False)
+    out.print(f"Private:    {o / 'private'}  (ledger, review sheets, pseudonyms: never publish)", highlight=False, markup=False)
     out.print(f"Datasheet:  {o / 'datasheet.md'}", highlight=False, markup=False)
-    out.print(f"Manifest:   {o / 'manifest.json'}", highlight=False, markup=False)
+    out.print(f"Manifest:   {o / 'manifest.json'}  (leak audit passed; 'corpuskit pack' makes the archive to publish)",
+              highlight=False, markup=False)
 
 
 def _run(recipe: Path, out_dir: Path, engine: str, workers: Optional[int], scheduler: Optional[str],
@@ -200,6 +201,19 @@ def prune(out_dir: Path = typer.Option(..., "--out", help="output folder of a fi
         _fail(exc)
     out.print(f"removed {files} cached files ({size / 2**20:.1f} MB) that the last complete run did not use",
               highlight=False, markup=False)
+
+
+@app.command()
+def pack(out_dir: Path = typer.Option(..., "--out", help="output folder of a finished run"),
+         archive: Optional[Path] = typer.Option(None, help="archive to write (default: OUT/<corpus>-public.tar.gz)")) -> None:
+    """Pack exactly the publishable files, as the manifest lists them, into one archive (only after the leak audit passed)."""
+    from .pack import pack as pack_files
+
+    try:
+        path, n = pack_files(out_dir, archive)
+    except CorpusError as exc:
+        _fail(exc)
+    out.print(f"packed {n} public files into {path}; restricted/ and private/ are not in it", highlight=False, markup=False)
 
 
 @app.command()

@@ -53,6 +53,11 @@ class CorpusSpec:
                             help="how apostrophe-like letters are written")
     answers: str = param("", help="datasheet answers file, relative to the recipe")
     allow_outside_paths: bool = param(False, help="let source paths leave the recipe's folder")
+    regions: list[str] = param([], help="ISO 3166-1 codes of the regions where the speakers live, e.g. ['KE', 'TZ']: "
+                                        "phone numbers written in their national formats are scrubbed")
+    pseudonym_secret: str = param("private/pseudonym-secret.txt",
+                                  help="file (relative to the recipe) holding the secret that makes people's pseudonyms; "
+                                       "created on the first run; keep it private and keep it")
     max_files_per_source: int = param(20000, low=1, help="refuse globs matching more files")
     partition_docs: int = param(2000, low=1, help="documents per partition")
     shard_docs: int = param(5000, low=1, help="documents per output shard at most; shards hold whole partitions, "
@@ -74,6 +79,8 @@ class SourceSpec:
     encoding: str = param("utf-8", help="text encoding, or 'detect'")
     priority: int = param(0, help="higher wins when duplicates are resolved")
     transliterate: str = param("", help="transliteration table applied to this source")
+    attribution: bool = param(False, help="the contributors agreed to be named: keep real speaker, sender and "
+                                          "contributor names instead of pseudonyms")
     options: dict = param({}, help="reader options")
 
     @property
@@ -121,6 +128,11 @@ class Recipe:
 
     def stage(self, name: str) -> Any:
         return self.stages[name]
+
+    @property
+    def secret_path(self) -> Path:
+        """Where the pseudonym secret lives (inside the recipe's folder unless allowed outside)."""
+        return self.resolve(self.corpus.pseudonym_secret, "[corpus] pseudonym_secret")
 
 
 def glob_prefix(pattern: str) -> str:
@@ -226,6 +238,7 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
         raise RecipeError(f"{path}: missing the [corpus] table; add [corpus] with name and language.")
     corpus = build(CorpusSpec, data["corpus"], "[corpus]", path)
     _check_language(corpus, path)
+    _check_regions(corpus, path)
     raw_sources = data.get("sources", [])
     if not isinstance(raw_sources, list) or not raw_sources:
         raise RecipeError(f"{path}: no [[sources]] given; add at least one [[sources]] table with id, path and format.")
@@ -256,6 +269,15 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
               for name, stage in STAGES.items()}
     return Recipe(path=path.resolve(), sha256=hashlib.sha256(raw).hexdigest(), corpus=corpus,
                   sources=tuple(sources), stages=stages)
+
+
+def _check_regions(corpus: CorpusSpec, path: Path) -> None:
+    from .pii import is_region
+    for code in corpus.regions:
+        if not is_region(code):
+            hint = f"; did you mean '{code.upper()}'?" if is_region(code.upper()) else ""
+            raise RecipeError(f"{path}: [corpus] key 'regions' has '{code}', which is not an ISO 3166-1 alpha-2 region "
+                              f"code{hint}; use two capital letters such as 'KE' or 'DE'.")
 
 
 def _check_language(corpus: CorpusSpec, path: Path) -> None:

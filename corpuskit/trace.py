@@ -10,9 +10,9 @@ from .errors import RecipeError
 
 def trace_document(out: Path, doc_id: str) -> list[str]:
     out = Path(out)
-    ledger = out / "ledger.jsonl.gz"
+    ledger = out / "private" / "ledger.jsonl.gz"
     if not ledger.exists():
-        raise RecipeError(f"{out}: no ledger.jsonl.gz here; run the recipe first or give the right --out.")
+        raise RecipeError(f"{out}: no private/ledger.jsonl.gz here; run the recipe first or give the right --out.")
     lines = [f"document {doc_id}"]
     fate = None
     with gzip.open(ledger, "rt", encoding="utf-8") as f:

@@ -19,7 +19,7 @@ from corpuskit.runner import _check_partition
 
 from .conftest import ROOT, copy_demo
 
-CONTRACT = ("corpus", "splits", "tokenizer", "reports", "restricted", "ledger.jsonl.gz", "datasheet.md", "manifest.json")
+CONTRACT = ("corpus", "splits", "tokenizer", "reports", "restricted", "private", "datasheet.md", "manifest.json")
 
 
 def contract_files(out: Path) -> dict[str, str]:
@@ -33,7 +33,7 @@ def contract_files(out: Path) -> dict[str, str]:
 
 def test_demo_outputs_and_conservation(demo_run):
     out = demo_run.out
-    for name in ("corpus/corpus-00000.jsonl.gz", "corpus/corpus.txt", "ledger.jsonl.gz", "manifest.json", "datasheet.md",
+    for name in ("corpus/corpus-00000.jsonl.gz", "corpus/corpus.txt", "private/ledger.jsonl.gz", "manifest.json", "datasheet.md",
                  "splits/train.jsonl.gz", "tokenizer/tokenizer.model", "tokenizer/dialects.csv", "reports/balance.html"):
         assert (out / name).exists(), name
     m = json.loads((out / "manifest.json").read_text())

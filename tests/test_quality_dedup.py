@@ -9,7 +9,8 @@ from corpuskit.api import load_corpus
 from corpuskit.stages import split as split_stage
 from corpuskit.stages.dedup import (batch_shingle_hashes, batch_signatures, clusters_from_pairs,
                                     permutations, shingle_hashes, signature)
-from corpuskit.stages.qualityfilter import Params as FParams, apply as filter_apply, scrub, segment_problem
+from corpuskit.pii import scrub
+from corpuskit.stages.qualityfilter import Params as FParams, apply as filter_apply, segment_problem
 
 # -- each reason code on a constructed case ---------------------------------------------------
 
@@ -38,7 +39,7 @@ def test_clean_segment_passes_every_filter():
 
 def test_repeated_lines_drop_the_document_with_a_ledger_row():
     doc = {"id": "s:1", "source": "s", "segments": ["ŋɔ bɛli kamɛ tabu"] * 4, "seg_index": [0, 1, 2, 3]}
-    kept, rows = filter_apply([doc], FParams(), "Latn")
+    kept, rows = filter_apply([doc], FParams(), {"target_script": "Latn", "regions": []})
     assert kept == [] and [(r.reason, r.unit, r.segments) for r in rows] == [("repeated-lines", "document", 4)]
 
 
@@ -65,7 +66,7 @@ def test_id_number_pattern_from_the_recipe():
 
 def test_drop_document_policy_removes_documents_with_personal_data():
     doc = {"id": "s:1", "source": "s", "segments": ["ŋɔ bɛli kamɛ tabu +99 412 555 0199"], "seg_index": [0]}
-    kept, rows = filter_apply([doc], FParams(pii="drop-document"), "Latn")
+    kept, rows = filter_apply([doc], FParams(pii="drop-document"), {"target_script": "Latn", "regions": []})
     assert kept == [] and rows[-1].reason == "personal-data" and rows[-1].unit == "document"
 
 

@@ -111,7 +111,9 @@ class ScriptInventory:
         self.chars = Counter()
         self.examples: dict[tuple, str] = {}
 
-    def add(self, doc: dict) -> None:
+    def add(self, doc: dict, examples: bool = True) -> None:
+        """Count the document's characters; with ``examples`` False (a source that may not be
+        redistributed) its text gives no example contexts."""
         from ..stages.script import char_script
         for seg in doc["segments"]:
             for i, ch in enumerate(seg):
@@ -120,7 +122,7 @@ class ScriptInventory:
                 key = (doc["source"], doc.get("dialect") or "unknown", char_script(ch), ch)
                 self.chars[key] += 1
                 if key not in self.examples:
-                    self.examples[key] = seg[max(0, i - 15):i + 15]
+                    self.examples[key] = seg[max(0, i - 15):i + 15] if examples else "(restricted source)"
 
     def state(self) -> list:
         return [[*key, n, self.examples[key]] for key, n in sorted(self.chars.items())]

@@ -30,15 +30,20 @@ CAUTIONS = """\
   (`consent`), and sources whose scope or licence does not allow
   redistribution are kept out of the public files.
 - Personal data was scrubbed automatically (phone numbers, e-mail addresses,
-  personal URLs, configured ID numbers); automatic scrubbing misses things.
-  Names, places and stories can still identify people: review before release.
+  personal URLs, configured ID numbers), and the names of speakers, message
+  senders and contributors were replaced by stable pseudonyms unless a
+  source's consent covers attribution. Automatic scrubbing helps but
+  guarantees nothing: names, places and stories in the text can still
+  identify people. A person from the community reviews before publication.
 - The community that speaks the language has a say over its data (collective
   benefit, authority to control, responsibility and ethics, as in the CARE
   principles for Indigenous data governance). Material the community
   restricts must stay restricted, whatever a licence says.
-- `ledger.jsonl.gz` keeps the text of removed segments (personal data
-  scrubbed) from every source, restricted ones included, so that removals
-  can be checked: treat it as the team's working file, not for publication.
+- `private/` (the ledger with the text of removed segments, review sheets,
+  the pseudonym mapping and its secret) is the team's working folder, never
+  for publication; `restricted/` holds the sources that may not be
+  redistributed. Before the manifest was written, a leak audit scanned every
+  public file for personal data, restricted text and real names.
 - Local law on personal data and on cultural heritage, and the community's
   own rules, take precedence over anything in this datasheet or in the tool.
 """
@@ -122,7 +127,7 @@ def render(recipe, facts: dict) -> tuple[str, list[str]]:
                        f"{cons['documents']['removed']} removed ({'holds' if cons['documents']['holds'] else 'FAILS'}); "
                        f"segments {cons['segments']['in']} in = {cons['segments']['kept']} kept + "
                        f"{cons['segments']['removed']} removed ({'holds' if cons['segments']['holds'] else 'FAILS'}). "
-                       "Every removal and rewrite is in `ledger.jsonl.gz`.\n")
+                       "Every removal and rewrite is in the ledger (`private/ledger.jsonl.gz`, not for publication).\n")
             ts = tok.get("summary", {})
             if ts.get("trained"):
                 out.append(f"Tokenizer: SentencePiece {ts['model_type']}, vocabulary {ts['vocab_used']} "

@@ -21,15 +21,17 @@ from pathlib import Path
 
 import numpy as np
 
+from ..audit import LEAK_MIN_CHARS, leak_key
 from ..ledger import Counts, remove_document
+from ..people import pseudonymise_document
 from ..records import jsonable
-from ..storage import Cache, atomic_open, atomic_write_bytes
+from ..storage import Cache, atomic_open, atomic_write_bytes, digest64
 from .split import SPLITS
 
 __all__ = ["PieceSettings", "LedgerSettings", "document_piece_task", "ledger_piece_task", "LedgerSummary",
            "ReviewPool", "SampleMerger", "shard_groups", "join_sections", "read_section", "DESTINATIONS"]
 
-VERSION = "1"
+VERSION = "2"
 DESTINATIONS = ("public", "restricted") + SPLITS
 STAGE = "export"
 
@@ -41,6 +43,8 @@ class PieceSettings:
     review_size: int
     sample_lines: dict              # sample group kind -> most lines kept ("train", "train:", "dev:")
     ledger: "LedgerSettings"
+    secret: str = ""                # the pseudonym secret (hex); empty: names are kept
+    named_as: tuple = ()            # (source, the team name the recipe gives it, keeps real names)
 
 
 @dataclass(frozen=True)
@@ -48,6 +52,7 @@ class LedgerSettings:
     scrub_pii: bool
     id_patterns: tuple
     not_public: tuple               # sources whose removed text may not appear in reports
+    regions: tuple = ()             # regions whose national phone formats are scrubbed
 
 
 def destination(doc: dict, restricted_policy: str) -> str:
@@ -98,10 +103,23 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
     by_source: dict[str, Counter] = defaultdict(Counter)
     split_counts: dict[tuple[str, str], list[int]] = defaultdict(lambda: [0, 0])
     counts, export_rows = Counts(), []
+    key = bytes.fromhex(settings.secret) if settings.secret else b""
+    naming = {source: (team, keeps) for source, team, keeps in settings.named_as}
+    people: dict[str, str] = {}
+    restricted_texts: set[str] = set()
+    public_digests: set[int] = set()
     for d in docs:
+        team, keeps_names = naming.get(d["source"], (None, False))
+        if key and not keeps_names:
+            pseudonymise_document(d, key, team, people)
         counts.docs_in += 1
         counts.segs_in += len(d["segments"])
         where = destination(d, settings.restricted)
+        keys = [k for k in map(leak_key, d["segments"]) if len(k) >= LEAK_MIN_CHARS]
+        if where == "public":
+            public_digests.update(map(digest64, keys))
+        else:
+            restricted_texts.update(keys)
         if where == "excluded":
             export_rows.append(remove_document("export", d, "not-redistributable",
                                                f"consent '{d['consent']}' / licence '{d['licence']}'"))
@@ -112,7 +130,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
         by_source[d["source"]]["documents kept"] += 1
         by_source[d["source"]]["segments kept"] += len(d["segments"])
         stats.add(d)
-        inventory.add(d)
+        inventory.add(d, examples=where == "public")
         if d.get("seg_score"):
             review.extend((d["id"], s, sc) for s, sc in zip(d["segments"], d["seg_score"]) if sc is not None)
         targets = [where] if where == "restricted" else [where, d["split"] or "train"]
@@ -147,6 +165,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
         texts.extend(json.dumps(t, ensure_ascii=False) for _, t in chosen)
     sections.add("sample.priorities", np.array(priorities, dtype="<u8").tobytes())
     sections.add("sample.jsonl", "".join(t + "\n" for t in texts).encode("utf-8"))
+    sections.add("public.digests", np.array(sorted(public_digests), dtype="<u8").tobytes())
     ledger_rows = [r.as_dict() for r in export_rows]
     ledger = summarise_ledger_rows(ledger_rows, settings.ledger)
     if ledger_rows:
@@ -155,7 +174,8 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
     summary = {"counts": counts.as_dict(), "files": files, "by_source": {k: dict(v) for k, v in by_source.items()},
                "split_counts": [[d, s, n, segs] for (d, s), (n, segs) in sorted(split_counts.items())],
                "stats": stats.state(), "scripts": inventory.state(), "review": review.best() if review.threshold is not None else [],
-               "sample_groups": sample_groups, "sections": sections.index, "ledger": ledger}
+               "sample_groups": sample_groups, "sections": sections.index, "ledger": ledger,
+               "people": dict(sorted(people.items())), "restricted_texts": sorted(restricted_texts)}
     cache.put_json(STAGE, f"{name}.json", summary)
     return name
 
@@ -269,13 +289,13 @@ def summarise_ledger_rows(rows: list[dict], settings: LedgerSettings) -> dict:
     removals per stage total and per source, up to three examples per reason from
     redistributable sources, rewrites by reason, variant rewrites, round trips, NFKC folds."""
     from . import variants as variants_stage
-    from .qualityfilter import scrub
+    from ..pii import scrub
     by_source: dict[str, Counter] = defaultdict(Counter)
     examples: dict[str, list[str]] = defaultdict(list)
     rewrites, round_trip, variant_rewrites, folds = Counter(), Counter(), Counter(), Counter()
     for r in rows:
         if r.get("text") and settings.scrub_pii:
-            r["text"] = scrub(r["text"], list(settings.id_patterns))[0]
+            r["text"] = scrub(r["text"], settings.id_patterns, settings.regions)[0]
         source = r["doc_id"].split(":", 1)[0]
         if r["action"] == "removed" and r["unit"] == "document":
             by_source[source]["documents removed"] += 1

@@ -16,7 +16,7 @@ import json
 import sys
 import unicodedata
 from collections import Counter, defaultdict
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from importlib import metadata
 from pathlib import Path
 from typing import Any
@@ -32,6 +32,7 @@ from ._pieces import (EMPTY_GZIP, VERSION as PIECES_VERSION, LedgerSettings, Led
                       SampleMerger, destination, document_piece_task, join_sections, ledger_piece_task, read_section,
                       shard_groups)
 from .split import SPLITS
+from ..audit import PUBLIC_FILES, PUBLIC_PARTS, public_files
 
 __all__ = ["Params", "write_outputs", "destination", "variants_report", "transliteration_report"]
 
@@ -135,11 +136,13 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
 
     recipe, cache, out = runner.recipe, runner.cache, runner.out
     params: Params = recipe.stages["export"]
-    for sub in ("corpus", "splits", "tokenizer", "reports", "restricted"):
+    for stale in (out / "manifest.json", out / "ledger.jsonl.gz"):  # no manifest until the audit passes
+        stale.unlink(missing_ok=True)
+    for sub in ("corpus", "splits", "tokenizer", "reports", "restricted", "private"):
         p = out / sub
         if p.exists():
             for f in p.iterdir():
-                if f.is_file():
+                if f.is_file() and f.name != "pseudonym-secret.txt":
                     f.unlink()
     doc_pieces, ledger_pieces = _make_pieces(runner, in_stage, parts)
     m = merge_pieces(runner, doc_pieces, ledger_pieces)
@@ -148,7 +151,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     kept_docs, kept_segs = counts.docs_out, counts.segs_out
     public_count, restricted_count = _join_documents(out, cache, doc_pieces, summaries, params, recipe.corpus.shard_docs)
     split_docs = {name: sum(s["files"].get(name, 0) for s in summaries) for name in SPLITS}
-    _join_ledger(out / "ledger.jsonl.gz", cache, ledger_pieces, doc_pieces, summaries)
+    _join_ledger(out / "private" / "ledger.jsonl.gz", cache, ledger_pieces, doc_pieces, summaries)
 
     # Tokenizer on a sample of the public train split, report on the dev split.
     lines = _sample_lines(cache, doc_pieces, summaries, samples)
@@ -174,7 +177,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "removals.csv", _csv(removal_rows, ["stage", "reason", "removed", "examples"]))
     atomic_write_text(rep / "rewrites.csv", _csv([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
-    extra = _stage_reports(runner, rep, review)
+    extra = _stage_reports(runner, rep, out / "private", review)
     atomic_write_text(rep / "variants.csv", _csv(variants_report(stats.types["dialect"], variant_rewrites),
                                                  ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
@@ -213,8 +216,19 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         "sources": source_rows,
         "datasheet_unanswered": unanswered,
     }
+    people = _write_private(out, m.people, runner.people_secret)
+    hits = _leak_audit(out, cache, doc_pieces, summaries, people, recipe)
+    if hits:
+        from ..errors import DataError
+        shown = "; ".join(h.describe() for h in hits[:5])
+        raise DataError(f"{out}: the leak audit found {len(hits)} problem(s) in public files: {shown}"
+                        f"{' ...' if len(hits) > 5 else ''}; no manifest was written. The full list is in "
+                        "private/leak-audit.json; fix the source (scrub it, mark it restricted) and run again.")
+    manifest["leak_audit"] = {"passed": True, "public_files_scanned": len(public_files(out)),
+                              "names_checked": len(people), "restricted_segments_checked": m.restricted_count}
     files = sorted(p for p in out.rglob("*") if p.is_file() and _in_contract(p.relative_to(out)))
-    manifest["files"] = {str(p.relative_to(out)): {"sha256": file_sha256(p), "bytes": p.stat().st_size} for p in files}
+    manifest["files"] = {str(p.relative_to(out)): {"sha256": file_sha256(p), "bytes": p.stat().st_size,
+                                                   "public": p.relative_to(out).parts[0] != "restricted"} for p in files}
     atomic_write_text(out / "manifest.json", json.dumps(manifest, indent=2, ensure_ascii=False, sort_keys=True) + "\n")
     if not (cons["documents"]["holds"] and cons["segments"]["holds"]):
         from ..errors import DataError
@@ -224,8 +238,47 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
 
 
 def _in_contract(rel: Path) -> bool:
-    return rel.parts[0] in ("corpus", "splits", "tokenizer", "reports", "restricted") or \
-        str(rel) in ("ledger.jsonl.gz", "datasheet.md")
+    """Files the manifest lists: the public ones and restricted/ (never private/)."""
+    return rel.parts[0] in PUBLIC_PARTS + ("restricted",) or str(rel) in PUBLIC_FILES
+
+
+PRIVATE_README = """\
+This folder is for the team that prepares the corpus, never for publication:
+- ledger.jsonl.gz: every removed or rewritten unit, with the removed text (personal data scrubbed);
+- langid-review.csv: uncertain segments for review, from every source, restricted ones included;
+- pseudonyms.csv: the real names of speakers, senders and contributors and their pseudonyms;
+- pseudonym-secret.txt: a copy of the secret the pseudonyms are made with (the recipe's
+  [corpus] pseudonym_secret); whoever has it can test whether a name belongs to a pseudonym;
+- leak-audit.json: what the leak audit of the public files found.
+Keep it with the team and the community that holds the material.
+"""
+
+
+def _write_private(out: Path, people: dict[str, str], secret: bytes | None) -> dict[str, str]:
+    """The private folder: its README, the pseudonym mapping and a copy of the secret."""
+    folder = out / "private"
+    atomic_write_text(folder / "README.txt", PRIVATE_README)
+    atomic_write_text(folder / "pseudonyms.csv", _csv([{"name": n, "pseudonym": p} for n, p in sorted(people.items())],
+                                                      ["name", "pseudonym"]))
+    if secret:
+        atomic_write_text(folder / "pseudonym-secret.txt", secret.hex() + "\n")
+        (folder / "pseudonym-secret.txt").chmod(0o600)
+    return people
+
+
+def _leak_audit(out: Path, cache, names: list[str], summaries: list[dict], people: dict[str, str], recipe) -> list:
+    """Scan every public file (see ``corpuskit.audit``); the hits, also in private/leak-audit.json."""
+    from .. import audit
+    fparams = recipe.stages["filter"]
+    restricted = [t for name in names for t in cache.get_json("export", f"{name}.json").get("restricted_texts", [])]
+    public = [np.frombuffer(read_section(cache.blob_path("export", f"{name}.bin"), s["sections"]["public.digests"]),
+                            dtype="<u8") for name, s in zip(names, summaries) if "public.digests" in s["sections"]]
+    checker = audit.LeakAudit(audit.restricted_keys(restricted, np.concatenate(public) if public else []),
+                              list(people), {s.id for s in recipe.sources if not s.redistributable},
+                              tuple(fparams.id_patterns), tuple(recipe.corpus.regions), fparams.pii != "keep")
+    hits = checker.scan(out)
+    audit.write_report(out / "private" / "leak-audit.json", hits)
+    return hits
 
 
 def _version(name: str) -> str:
@@ -250,9 +303,13 @@ def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[st
     recipe, cache = runner.recipe, runner.cache
     fparams = recipe.stages["filter"]
     ledger_settings = LedgerSettings(fparams.pii != "keep", tuple(fparams.id_patterns),
-                                     tuple(sorted(s.id for s in recipe.sources if not s.redistributable)))
+                                     tuple(sorted(s.id for s in recipe.sources if not s.redistributable)),
+                                     tuple(recipe.corpus.regions))
+    runner.people_secret = _people_secret(runner)
     settings = PieceSettings(recipe.stages["export"].restricted, _langid_threshold(runner),
-                             recipe.stages["langid"].review_size, SAMPLE_LINES, ledger_settings)
+                             recipe.stages["langid"].review_size, SAMPLE_LINES, ledger_settings,
+                             runner.people_secret.hex() if runner.people_secret else "",
+                             tuple((s.id, s.contributor or None, s.attribution) for s in recipe.sources))
     doc_names = [f"doc-{stable_hash(PIECES_VERSION, VERSION, p.key, settings)}" for p in parts]
     ledger_pieces = [(stage, [f"ledger-{stable_hash(PIECES_VERSION, stage, key, ledger_settings)}"
                               for key in runner.last_keys.get(stage, [])])
@@ -274,6 +331,17 @@ def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[st
     return doc_names, ledger_pieces
 
 
+def _people_secret(runner) -> bytes | None:
+    """The pseudonym secret, created (with a warning) on a project's first run."""
+    from ..people import load_or_create_secret
+    path = runner.recipe.secret_path
+    secret, created = load_or_create_secret(path)
+    if created:
+        runner.warnings.append(f"{path}: created a new pseudonym secret; keep it private and keep it (with it, the same "
+                               "person gets the same pseudonym in every run; without it, all pseudonyms change)")
+    return secret
+
+
 @dataclass
 class Merged:
     """The pieces' summaries combined, in partition order."""
@@ -286,6 +354,8 @@ class Merged:
     ledger: LedgerSummary
     counts: Counts
     summaries: list[dict]   # per document piece, what joining its files needs
+    people: dict = field(default_factory=dict)      # real name -> pseudonym
+    restricted_count: int = 0                       # restricted segments the leak audit looks for
 
 
 def merge_pieces(runner, doc_pieces: list[str], ledger_pieces: list[tuple[str, list[str]]]) -> Merged:
@@ -311,6 +381,8 @@ def merge_pieces(runner, doc_pieces: list[str], ledger_pieces: list[tuple[str, l
         m.review.extend(summary["review"])
         m.samples.add_priorities(summary["sample_groups"], _priorities(cache, summary))
         m.ledger.merge("export", summary["ledger"])
+        m.people.update(summary.get("people", {}))
+        m.restricted_count += len(summary.get("restricted_texts", []))
     for source, tally in m.ledger.by_source.items():
         m.by_source.setdefault(source, Counter()).update(tally)
     return m
@@ -404,7 +476,7 @@ def _tokenizer(out: Path, cache, params: Params, recipe, train_lines: list[str],
     return {"summary": summary, "dialects": rows}
 
 
-def _stage_reports(runner, rep: Path, review) -> dict:
+def _stage_reports(runner, rep: Path, private: Path, review) -> dict:
     cache, recipe = runner.cache, runner.recipe
     extra: dict = {}
     if cache.has_blob("dedup", "report.json"):
@@ -432,7 +504,7 @@ def _stage_reports(runner, rep: Path, review) -> dict:
         from .langid import review_rows
         from ..variants_table import neutralise_cell
         rows = review_rows(review.best(), r["threshold"]["value"], recipe.stages["langid"].review_size)
-        atomic_write_text(rep / "langid-review.csv",
+        atomic_write_text(private / "langid-review.csv",
                           _csv([{k: neutralise_cell(str(v)) for k, v in x.items()} for x in rows],
                                ["doc_id", "text", "p_target", "label"]))
     return extra

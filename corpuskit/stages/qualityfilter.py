@@ -13,10 +13,12 @@ from dataclasses import dataclass
 import regex
 
 from ..ledger import LedgerRow, remove_document
+from ..pii import PLACEHOLDER, scrub
 from ..recipe import param
+from ..storage import stable_hash
 from ._base import drop_empty, keep_segments
 
-VERSION = "3"
+VERSION = "4"
 
 
 @dataclass(frozen=True)
@@ -35,36 +37,8 @@ class Params:
     id_patterns: list[str] = param([], help="regular expressions for ID numbers to scrub")
 
 
-# Personal data, most specific first; each replaced by its placeholder.
-PII_PATTERNS = [
-    ("email", regex.compile(r"[\w.+-]+@[\w-]+(?:\.[\w-]+)+")),
-    ("url", regex.compile(r"""(?:https?://|www\.)\S*?(?:[?&](?:user|uid|id|phone|email|name|profile)=|/(?:u|user|users|profile|people)/)\S*""", regex.I)),
-    ("phone", regex.compile(r"""(?<![\w+(])(?:
-        (?:\+\d{1,3}[\s.-]?|\(\d{1,4}\)[\s.-]?)   # a country code or an area code in brackets
-        (?:\(\d{1,4}\)[\s.-]?)?
-        \d{2,4}(?:[\s.-]\d{2,4}){1,4}           # then two or more groups of digits
-      | (?!\d{4}-\d{2}-\d{2}(?![\d-]))            # (not an ISO 8601 date)
-        \d{2,4}(?:[\s.-]\d{2,4}){2,4}           # or three or more groups without either
-        )(?![\w])""", regex.X)),
-]
 URL = regex.compile(r"https?://\S+|www\.\S+")
 EMOJI = regex.compile(r"[\p{Extended_Pictographic}\p{Emoji_Modifier}\N{VARIATION SELECTOR-16}\N{ZERO WIDTH JOINER}]")
-PLACEHOLDER = regex.compile(r"<(?:PHONE|EMAIL|URL|ID)>")
-
-
-def scrub(text: str, id_patterns: list[str] = ()) -> tuple[str, Counter]:
-    """Replace personal data with typed placeholders.
-
-    >>> scrub("call +44 20 7946 0958 or mail ana@example.org")
-    ('call <PHONE> or mail <EMAIL>', Counter({'email': 1, 'phone': 1}))
-    """
-    counts: Counter = Counter()
-    patterns = PII_PATTERNS + [("id", regex.compile(p)) for p in id_patterns]
-    for kind, pat in patterns:
-        text, n = pat.subn(f"<{kind.upper()}>", text)
-        if n:
-            counts[kind] += n
-    return text, counts
 
 
 def segment_problem(text: str, params: Params, script: str, target: str) -> tuple[str, str] | None:
@@ -97,22 +71,23 @@ def segment_problem(text: str, params: Params, script: str, target: str) -> tupl
     return None
 
 
-def apply(docs: list[dict], params: Params, target_script: str | None):
-    target_script = target_script or "Latn"
+def apply(docs: list[dict], params: Params, ctx: dict | None):
+    ctx = ctx or {"target_script": "Latn", "regions": ()}
+    target_script, regions = ctx["target_script"], tuple(ctx["regions"])
     rows: list[LedgerRow] = []
     out = []
     for doc in docs:
         found: Counter = Counter()
         if params.pii != "keep":
             for i, seg in enumerate(doc["segments"]):
-                new, counts = scrub(seg, params.id_patterns)
+                new, counts = scrub(seg, params.id_patterns, regions)
                 if counts:
                     found += counts
                     doc["segments"][i] = new
                     rows.append(LedgerRow("filter", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
                                           "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(counts.items())), None, None))
             if doc.get("original"):
-                doc["original"] = [scrub(s, params.id_patterns)[0] for s in doc["original"]]
+                doc["original"] = [scrub(s, params.id_patterns, regions)[0] for s in doc["original"]]
             if found and params.pii == "drop-document":
                 rows.append(remove_document("filter", doc, "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(found.items()))))
                 continue
@@ -130,8 +105,8 @@ def apply(docs: list[dict], params: Params, target_script: str | None):
 
 
 def context_key(recipe, params) -> str:
-    return recipe.corpus.target_script
+    return stable_hash(recipe.corpus.target_script, list(recipe.corpus.regions))
 
 
 def build_context(recipe, params, cache, key):
-    return recipe.corpus.target_script
+    return {"target_script": recipe.corpus.target_script, "regions": list(recipe.corpus.regions)}

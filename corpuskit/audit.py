@@ -1,0 +1,189 @@
+"""The leak audit: the last step of export, before the manifest.
+
+Every public file (``corpus/``, ``splits/``, ``tokenizer/``, ``reports/``, ``datasheet.md``)
+is read back and scanned for
+
+(a) personal data the detectors still find (phone numbers, e-mail addresses, profile
+    URLs, the recipe's ID patterns);
+(b) text of a source that may not be redistributed: a corpus record whose source is
+    restricted, or a report cell that is (the beginning of) a restricted segment not also
+    found in a public document;
+(c) a real name from the pseudonym mapping, anywhere but in segment text.
+
+A hit fails the run naming the file and line; the manifest is not written.
+"""
+from __future__ import annotations
+
+import bisect
+import csv
+import gzip
+import html
+import io
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Iterable, Iterator
+
+import regex
+
+from .pii import scrub
+
+__all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files"]
+
+LEAK_MIN_CHARS = 20          # shorter restricted segments ("ok", "thank you") are not tracked
+PUBLIC_PARTS = ("corpus", "splits", "tokenizer", "reports")
+PUBLIC_FILES = ("datasheet.md",)
+TEXT_COLUMNS = {"text", "example", "examples", "variant_examples", "canonical_examples"}
+SEGMENT_FIELDS = {"segments", "original"}
+_DATA_URI = regex.compile(r"data:[\w/+.-]+;base64,[A-Za-z0-9+/=]+")
+_TAG = regex.compile(r"<[^>]*>")
+_NUMBER = regex.compile(r"^-?\d+(?:\.\d+)?(?:e-?\d+)?$")
+
+
+def leak_key(text: str) -> str:
+    """Text compared for restricted material: case-folded, spaces collapsed."""
+    return " ".join(text.casefold().split())
+
+
+def public_files(out: Path) -> list[Path]:
+    files = [p for part in PUBLIC_PARTS if (out / part).is_dir() for p in sorted((out / part).rglob("*")) if p.is_file()]
+    return files + [out / name for name in PUBLIC_FILES if (out / name).is_file()]
+
+
+@dataclass(frozen=True)
+class Hit:
+    file: str
+    line: int
+    kind: str          # personal-data:<kind> | restricted-source | restricted-text | real-name
+    where: str = ""    # field or column
+
+    def describe(self) -> str:
+        place = f" ({self.where})" if self.where else ""
+        what = {"restricted-source": "a document of a source that may not be redistributed",
+                "restricted-text": "text of a source that may not be redistributed",
+                "real-name": "a real name from the pseudonym mapping"}.get(self.kind, self.kind.replace(":", ": "))
+        return f"{self.file} line {self.line}{place}: {what}"
+
+
+@dataclass
+class LeakAudit:
+    restricted_texts: list[str]               # leak keys, sorted, of segments not also public
+    names: list[str]                          # real names that were pseudonymised
+    restricted_sources: set[str]
+    id_patterns: tuple = ()
+    regions: tuple = ()
+    scrub_pii: bool = True
+    hits: list[Hit] = field(default_factory=list)
+
+    def __post_init__(self):
+        names = sorted({n.strip() for n in self.names if len(n.strip()) >= 3}, key=lambda n: (-len(n), n))
+        self._names = regex.compile(r"(?<!\w)(?:%s)(?!\w)" % "|".join(regex.escape(n) for n in names),
+                                    regex.I) if names else None
+
+    # -- checks on one string ---------------------------------------------------------------
+    def _personal(self, text: str) -> list[str]:
+        if not self.scrub_pii or not text:
+            return []
+        return sorted(scrub(text, self.id_patterns, self.regions)[1])
+
+    def _restricted(self, text: str) -> bool:
+        for piece in text.split(" | "):
+            key = leak_key(piece)
+            if len(key) < LEAK_MIN_CHARS:
+                continue
+            i = bisect.bisect_left(self.restricted_texts, key)
+            if i < len(self.restricted_texts) and self.restricted_texts[i].startswith(key):
+                return True
+        return False
+
+    def check(self, text: str, file: str, line: int, where: str = "", segment: bool = False,
+              example: bool = False) -> None:
+        """Every check on one string: personal data; restricted text (report cells and lines that
+        may quote segments); real names (anywhere but segment text and quoted examples)."""
+        for kind in self._personal(text):
+            self.hits.append(Hit(file, line, f"personal-data:{kind}", where))
+        if not segment and self.restricted_texts and self._restricted(text):
+            self.hits.append(Hit(file, line, "restricted-text", where))
+        if not segment and not example and self._names is not None and self._names.search(text):
+            self.hits.append(Hit(file, line, "real-name", where))
+
+    # -- files ---------------------------------------------------------------------------------
+    def scan(self, out: Path) -> list[Hit]:
+        for path in public_files(out):
+            rel = str(path.relative_to(out))
+            name = path.name
+            if name.endswith(".jsonl.gz"):
+                self._scan_records(path, rel)
+            elif name.endswith(".csv"):
+                self._scan_csv(path, rel)
+            elif name.endswith(".json"):
+                self._scan_json(path, rel)
+            elif name.endswith(".html"):
+                self._scan_lines(path, rel, html_text=True)
+            elif name.endswith((".txt", ".md")):
+                self._scan_lines(path, rel, segments=rel.startswith(("corpus/", "splits/")))
+            # binary files (the tokenizer model) hold pieces of public text only
+        return self.hits
+
+    def _scan_records(self, path: Path, rel: str) -> None:
+        with gzip.open(path, "rt", encoding="utf-8", newline="\n") as f:
+            for n, line in enumerate(f, 1):
+                record = json.loads(line)
+                if record.get("source") in self.restricted_sources:
+                    self.hits.append(Hit(rel, n, "restricted-source", "source"))
+                for key, value in record.items():
+                    for text in _strings(value):
+                        self.check(text, rel, n, key, segment=key in SEGMENT_FIELDS)
+
+    def _scan_csv(self, path: Path, rel: str) -> None:
+        with open(path, encoding="utf-8", newline="") as f:
+            reader = csv.reader(f)
+            header = next(reader, [])
+            for n, row in enumerate(reader, 2):
+                for column, cell in zip(header, row):
+                    if cell and not _NUMBER.match(cell):
+                        self.check(cell, rel, n, column, example=column in TEXT_COLUMNS)
+
+    def _scan_json(self, path: Path, rel: str) -> None:
+        data = json.loads(path.read_text(encoding="utf-8"))
+        for text in _strings(data):
+            self.check(text, rel, 1)
+
+    def _scan_lines(self, path: Path, rel: str, segments: bool = False, html_text: bool = False) -> None:
+        with open(path, encoding="utf-8", newline="\n") as f:
+            for n, line in enumerate(f, 1):
+                if html_text:
+                    line = html.unescape(_TAG.sub(" ", _DATA_URI.sub(" ", line)))
+                if line.strip():
+                    self.check(line.rstrip("\n"), rel, n, segment=segments)
+
+
+def _strings(value) -> Iterator[str]:
+    if isinstance(value, str):
+        yield value
+    elif isinstance(value, dict):
+        for v in value.values():
+            yield from _strings(v)
+    elif isinstance(value, list):
+        for v in value:
+            yield from _strings(v)
+
+
+def restricted_keys(candidates: Iterable[str], public_digests) -> list[str]:
+    """The restricted segment keys that no public document also holds, sorted."""
+    import numpy as np
+    from .storage import digest64
+    keys = sorted(set(candidates))
+    if not keys:
+        return []
+    digests = np.array([digest64(k) for k in keys], dtype=np.uint64)
+    public = np.asarray(public_digests, dtype=np.uint64)
+    also_public = np.isin(digests, public) if len(public) else np.zeros(len(keys), bool)
+    return [k for k, p in zip(keys, also_public.tolist()) if not p]
+
+
+def write_report(path: Path, hits: list[Hit]) -> None:
+    from .storage import atomic_write_text
+    buf = io.StringIO()
+    json.dump({"passed": not hits, "hits": [h.__dict__ for h in hits]}, buf, indent=1, sort_keys=True)
+    atomic_write_text(path, buf.getvalue() + "\n")
