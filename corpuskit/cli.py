@@ -280,14 +280,17 @@ app.add_typer(variants_app, name="variants")
 @variants_app.command("propose")
 def variants_propose(recipe: Path = typer.Argument(...),
                      out_dir: Path = typer.Option(None, "--out", help="the run's output folder (default: OUT next to the recipe)"),
-                     sheet: Path = typer.Option(Path("variant-review.csv"), help="review sheet to write"),
+                     sheet: Optional[Path] = typer.Option(None, help="review sheet to write (default: OUT/private/variant-review.csv)"),
                      top: int = typer.Option(200, help="candidates to propose")) -> None:
     """Propose ranked variant candidates from the corpus into a review sheet."""
     from .discovery import propose_from_run
     from .recipe import load_recipe
 
+    out_dir = out_dir or recipe.parent / "OUT"
+    sheet = sheet or out_dir / "private" / "variant-review.csv"
     try:
-        n = propose_from_run(load_recipe(recipe), out_dir or recipe.parent / "OUT", sheet, top)
+        sheet.parent.mkdir(parents=True, exist_ok=True)
+        n = propose_from_run(load_recipe(recipe), out_dir, sheet, top)
     except CorpusError as exc:
         _fail(exc)
     out.print(f"wrote {n} candidates to {sheet}; mark each row accept or reject, then run 'corpuskit variants accept'.",

@@ -76,7 +76,9 @@ class SourceSpec:
     script: str = param("", help="ISO 15924 code if the whole source uses one script")
     contributor: str = param("", help="pseudonymous contributor or team")
     date: str = param("", help="date or year of the material")
-    encoding: str = param("utf-8", help="text encoding, or 'detect'")
+    encoding: str = param("utf-8", help="text encoding (a Python codec name such as 'cp1251'), or 'detect'")
+    encodings: list[str] = param([], help="with encoding = 'detect': the code pages to choose among, e.g. "
+                                          "['cp1251', 'koi8_r'] (default: the common legacy code pages)")
     priority: int = param(0, help="higher wins when duplicates are resolved")
     transliterate: str = param("", help="transliteration table applied to this source")
     attribution: bool = param(False, help="the contributors agreed to be named: keep real speaker, sender and "
@@ -105,26 +107,45 @@ class Recipe:
         return resolve_inside(self.folder, value, key, self.path, self.corpus.allow_outside_paths)
 
     def source_files(self, source: SourceSpec) -> list[Path]:
+        return self.source_files_and_notes(source)[0]
+
+    def source_files_and_notes(self, source: SourceSpec) -> tuple[list[Path], list[str]]:
+        """The files a source's glob matches, each real file once (symlinks followed, loops
+        and links to the same file counted once), and notes on what was skipped (links that
+        lead nowhere or loop)."""
         pattern = str(self.folder / source.path)
         where = f"[[sources]] id = '{source.id}', key 'path'"
         if not self.corpus.allow_outside_paths:
             resolve_inside(self.folder, source.path.split("*")[0] or ".", where, self.path, False)
         matches: list[Path] = []
-        for i, name in enumerate(glob.iglob(pattern, recursive=True)):
-            if i >= self.corpus.max_files_per_source:
+        notes: list[str] = []
+        seen: set[str] = set()
+        for i, name in enumerate(_glob_files(pattern)):
+            if i >= 4 * self.corpus.max_files_per_source or len(matches) >= self.corpus.max_files_per_source:
                 raise RecipeError(
                     f"{self.path}: {where} matches more than {self.corpus.max_files_per_source} files; "
                     "narrow the glob or raise [corpus] max_files_per_source.")
             p = Path(name)
-            if p.is_dir():
+            try:
+                real = os.path.realpath(name)
+                is_file = p.is_file()
+            except OSError:
+                real, is_file = name, False
+            if not is_file:
+                if p.is_symlink():
+                    notes.append(f"{os.path.relpath(name, self.folder)}: a link that leads to no file (dangling or a "
+                                 "loop); skipped")
                 continue
+            if real in seen:
+                continue
+            seen.add(real)
             if not self.corpus.allow_outside_paths:
                 resolve_inside(self.folder, os.path.relpath(name, self.folder), where, self.path, False)
             matches.append(p)
         if not matches:
             raise RecipeError(f"{self.path}: {where} = '{source.path}' matches no file; "
                               "check the path, which is relative to the recipe's folder.")
-        return sorted(matches, key=lambda p: str(p))
+        return sorted(matches, key=lambda p: str(p)), notes
 
     def stage(self, name: str) -> Any:
         return self.stages[name]
@@ -133,6 +154,59 @@ class Recipe:
     def secret_path(self) -> Path:
         """Where the pseudonym secret lives (inside the recipe's folder unless allowed outside)."""
         return self.resolve(self.corpus.pseudonym_secret, "[corpus] pseudonym_secret")
+
+
+def _glob_regex(pattern: str):
+    """A glob as a regular expression over whole paths: ``**/`` any folders (or none), ``*`` and
+    ``?`` within one path part, ``[...]`` a character class."""
+    import re
+    out, i = [], 0
+    while i < len(pattern):
+        c = pattern[i]
+        if pattern.startswith("**/", i):
+            out.append("(?:[^/]*/)*")
+            i += 3
+            continue
+        if pattern.startswith("**", i):
+            out.append(".*")
+            i += 2
+            continue
+        if c == "*":
+            out.append("[^/]*")
+        elif c == "?":
+            out.append("[^/]")
+        elif c == "[" and "]" in pattern[i + 2:]:
+            end = pattern.index("]", i + 2)
+            body = pattern[i + 1:end]
+            out.append("[" + ("^" + body[1:] if body.startswith("!") else body).replace("\\", "\\\\") + "]")
+            i = end
+        else:
+            out.append(re.escape(c))
+        i += 1
+    return re.compile("".join(out) + r"\Z")
+
+
+def _glob_files(pattern: str):
+    """Paths matching ``pattern``.  Without ``**`` this is the standard glob; with it, a walk that
+    follows symlinked folders but enters each real folder once, so a link loop is walked once."""
+    if "**" not in pattern:
+        yield from glob.iglob(pattern)
+        return
+    root = os.path.dirname(glob_prefix(pattern)) or "."
+    matcher = _glob_regex(pattern)
+    visited: set[str] = set()
+    for dirpath, dirnames, filenames in os.walk(root, followlinks=True):
+        real = os.path.realpath(dirpath)
+        if real in visited:
+            dirnames[:] = []
+            continue
+        visited.add(real)
+        dirnames[:] = sorted(d for d in dirnames if not d.startswith("."))   # as glob: no hidden files
+        for name in sorted(f for f in filenames if not f.startswith(".")) + [d for d in dirnames if os.path.islink(os.path.join(dirpath, d))
+                                         and not os.path.isdir(os.path.join(dirpath, d))]:
+            full = os.path.join(dirpath, name)
+            if matcher.match(full):
+                yield full
 
 
 def glob_prefix(pattern: str) -> str:

@@ -176,7 +176,8 @@ class Runner:
 
         units = []
         for source in self.recipe.sources:
-            files = self.recipe.source_files(source)
+            files, notes = self.recipe.source_files_and_notes(source)
+            self.warnings.extend(f"source '{source.id}': {note}" for note in notes)
             groups = ingest.group_files(source, files, self.recipe.folder)
             reader = READERS[source.format]
             for group in groups:

@@ -13,7 +13,6 @@ regular expressions applied in order to each word token (graphemes with
 """
 from __future__ import annotations
 
-import csv
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -21,6 +20,7 @@ from pathlib import Path
 import regex
 
 from .errors import RecipeError
+from .sheets import neutralise_cell, restore_cell, write_sheet  # noqa: F401 (re-exported)
 
 __all__ = ["VariantEntry", "Rule", "Mapper", "load_table", "load_rules", "load_protected", "tokens", "match_case",
            "TABLE_HEADER", "neutralise_cell", "restore_cell", "write_sheet", "type_counts"]
@@ -156,24 +156,6 @@ class Mapper:
                 used[how] += 1
             out.append(new)
         return "".join(out), used
-
-
-def neutralise_cell(value: str) -> str:
-    """Make a CSV cell safe to open in a spreadsheet: a leading =, +, -, @, tab or CR is quoted."""
-    return "'" + value if value[:1] in ("=", "+", "-", "@", "\t", "\r") else value
-
-
-def restore_cell(value: str) -> str:
-    """Undo ``neutralise_cell``: drop the quote a formula-looking cell was given."""
-    return value[1:] if value.startswith("'") and value[1:2] in ("=", "+", "-", "@", "\t", "\r") else value
-
-
-def write_sheet(path: Path, rows: list[dict], columns: list[str]) -> None:
-    with open(path, "w", encoding="utf-8", newline="") as f:
-        w = csv.DictWriter(f, fieldnames=columns, lineterminator="\n")
-        w.writeheader()
-        for r in rows:
-            w.writerow({k: neutralise_cell(str(r.get(k, ""))) for k in columns})
 
 
 def type_counts(texts) -> Counter:

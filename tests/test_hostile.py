@@ -95,7 +95,9 @@ def test_gzip_with_an_absurd_expansion_ratio_is_refused(tmp_path):
 def test_a_single_50_mb_line(tmp_path):
     line = ("kema tabu " * (5 << 20)).encode()
     lines, tf = lines_of(tmp_path, "long.txt", line + b"\nafter\n")
-    assert [len(t) for _, t in lines] == [len(line), 5] and not tf.issues
+    assert [n for n, _ in lines] == [1] * 13 + [2]                # 4 MB pieces of line 1, then line 2
+    assert "".join(t for n, t in lines if n == 1) == line.decode() and lines[-1] == (2, "after")
+    assert [(r.reason, r.seg_index) for r in tf.issues] == [("long-line-cut", 1)]
 
 
 @settings(max_examples=200, deadline=None)

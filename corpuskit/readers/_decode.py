@@ -2,9 +2,14 @@
 
 UTF-8 is the default.  Byte-order marks select UTF-8/16/32; UTF-16 without a
 BOM is recognised by its NUL pattern; a legacy encoding can be declared per
-source, or ``detect`` tries a short list and warns.  Undecodable bytes become
-U+FFFD and a ledger row naming file, line and byte offset.  ``.gz`` files are
-read through a decompressor with an expansion limit.
+source, or ``detect`` lets charset-normalizer choose among the source's
+candidate code pages (the choice and its measures go to the ledger, a weak
+choice to the terminal).  A file declared UTF-8 whose first lines are mostly
+not UTF-8 is detected the same way, with a warning.  Undecodable bytes become
+U+FFFD and a ledger row naming file, line and byte offset.  Lines end at CR,
+LF, CRLF and NEL (the Unicode Standard, section 5.8); LS and PS stay in the
+text.  ``.gz`` files are read through a decompressor with an expansion limit
+(a file named .gz that is not gzip is read as it is, with a row).
 """
 from __future__ import annotations
 
@@ -24,10 +29,22 @@ __all__ = ["TextFile", "MAX_EXPANSION", "MAX_LINE_BYTES"]
 
 MAX_EXPANSION = 200          # decompressed / compressed bytes allowed for .gz input
 MAX_GZIP_FLOOR = 64 << 20    # always allow this much decompressed output
-MAX_LINE_BYTES = 64 << 20    # a longer line is cut into pieces of this size
+MAX_LINE_BYTES = 4 << 20     # a longer line is cut into pieces of this size (readers may allow more)
 CHUNK_BYTES = 1 << 20        # files are read in pieces of this size
 HEAD_BYTES = 8192            # what the encoding and binary checks look at
-DETECT_ORDER = ("utf-8", "cp1252", "cp1251", "latin-1")
+# The code pages ``detect`` chooses among unless a source lists its own (``encodings``): the
+# common legacy encodings of the regions corpuskit is used in (common practice; rarely used
+# ISO 8859 parts, which the detector confuses with these, are left out).
+DETECT_CANDIDATES = ("utf_8", "cp1250", "cp1251", "cp1252", "cp1253", "cp1254", "cp1255", "cp1256", "cp1257",
+                     "koi8_r", "koi8_u", "iso8859_2", "iso8859_5", "iso8859_7", "iso8859_9", "iso8859_15", "latin_1",
+                     "mac_roman", "shift_jis", "cp932", "euc_jp", "gb18030", "big5", "euc_kr")
+# Single-byte code pages that decode most text alike: after detection, the sibling whose text
+# has the fewest symbols inside words wins ("c½ur" in cp1252 is "cœur" in ISO 8859-15).
+SIBLINGS = (("cp1252", "iso8859_15", "latin_1"), ("cp1250", "iso8859_2"), ("cp1254", "iso8859_9"),
+            ("cp1253", "iso8859_7"), ("cp1251", "iso8859_5"))
+DETECT_BYTES = 256 << 10     # what the detector reads
+WEAK_CHAOS = 5.0             # a detected encoding whose text is this % "chaotic" or more is doubtful
+REPLACED_WARN = 0.01         # warn when more than this share of lines had undecodable bytes
 
 _BOMS = [(codecs.BOM_UTF32_LE, "utf-32-le"), (codecs.BOM_UTF32_BE, "utf-32-be"),
          (codecs.BOM_UTF8, "utf-8"), (codecs.BOM_UTF16_LE, "utf-16-le"), (codecs.BOM_UTF16_BE, "utf-16-be")]
@@ -43,6 +60,8 @@ class TextFile:
     encoding: str = "utf-8"
     issues: list[LedgerRow] = field(default_factory=list)
     warnings: list[str] = field(default_factory=list)
+    candidates: tuple = ()        # code pages ``detect`` may choose (default DETECT_CANDIDATES)
+    max_line_bytes: int | None = None   # default MAX_LINE_BYTES
 
     @property
     def file_id(self) -> str:
@@ -52,10 +71,15 @@ class TextFile:
     def _chunks(self, record: bool = True) -> Iterator[bytes]:
         """The file's bytes (decompressed for ``.gz``) in chunks of about CHUNK_BYTES."""
         with open(self.path, "rb") as f:
-            if self.path.suffix != ".gz":
+            if self.path.suffix != ".gz" or f.read(2) != b"\x1f\x8b":
+                f.seek(0)
+                if self.path.suffix == ".gz" and record:
+                    self.issues.append(rewrite("ingest", self.file_id, -1, "not-gzip",
+                                               f"{self.rel}: named .gz but not gzip data; read as it is"))
                 while chunk := f.read(CHUNK_BYTES):
                     yield chunk
                 return
+            f.seek(0)
             yield from self._gunzip(f, record)
 
     def _gunzip(self, f, record: bool) -> Iterator[bytes]:
@@ -95,6 +119,9 @@ class TextFile:
         a file expanding beyond MAX_EXPANSION times its size is refused before any line is read."""
         if self.path.suffix != ".gz":
             return True
+        with open(self.path, "rb") as f:
+            if f.read(2) != b"\x1f\x8b":
+                return True
         limit = max(MAX_GZIP_FLOOR, MAX_EXPANSION * os.path.getsize(self.path))
         size = 0
         for chunk in self._chunks(record=False):
@@ -129,21 +156,47 @@ class TextFile:
                 return "utf-16-le", 0
             if even > 3 * max(odd, 1):
                 return "utf-16-be", 0
+        wide = _utf16_without_bom(sample)
+        if wide:
+            return wide, 0
         enc = self.encoding.lower()
+        if enc in ("utf-8", "utf8", "detect") and self.is_binary(head):
+            return "utf-8", 0          # the caller skips it as binary
+        if enc in ("utf-8", "utf8") and _mostly_not_utf8(head):
+            self.warnings.append(f"{self.rel}: declared UTF-8 but its first lines are mostly not UTF-8; detecting "
+                                 "the encoding (set the source's encoding to silence this)")
+            enc = "detect"
         if enc != "detect":
             return enc, 0
-        for candidate in DETECT_ORDER:  # a pass over the file per candidate, decoding in chunks
-            decoder = codecs.getincrementaldecoder(candidate)()
-            try:
-                for chunk in self._chunks(record=False):
-                    decoder.decode(chunk)
-                decoder.decode(b"", final=True)
-            except UnicodeDecodeError:
-                continue
-            if candidate != "utf-8":
-                self.warnings.append(f"{self.rel}: not UTF-8; decoded as {candidate} (declare encoding in the recipe to silence this)")
-            return candidate, 0
-        return "utf-8", 0  # pragma: no cover - latin-1 always decodes
+        return self._detect(), 0
+
+    def _detect(self) -> str:
+        """charset-normalizer's choice among the candidates (siblings re-ranked), recorded."""
+        import charset_normalizer
+
+        sample = b""
+        for chunk in self._chunks(record=False):
+            sample += chunk
+            if len(sample) >= DETECT_BYTES:
+                break
+        sample = _cut_at_line(sample, DETECT_BYTES)
+        candidates = list(self.candidates or DETECT_CANDIDATES)
+        matches = list(charset_normalizer.from_bytes(sample, cp_isolation=candidates))
+        if not matches:
+            self.warnings.append(f"{self.rel}: no candidate encoding ({', '.join(candidates)}) decodes this file; "
+                                 "read as UTF-8 with replacement characters; set the source's encoding")
+            self.issues.append(rewrite("ingest", self.file_id, -1, "encoding-detected",
+                                       f"{self.rel}: none of {', '.join(candidates)} fits; read as utf_8"))
+            return "utf-8"
+        best = _prefer_coherent(matches)
+        choice = _prefer_sibling(best.encoding, sample, candidates)
+        chaos, coherence = best.percent_chaos, best.percent_coherence
+        detail = (f"{self.rel}: encoding {choice} detected (charset-normalizer: {chaos:.1f}% chaos, "
+                  f"{coherence:.1f}% coherence{', language ' + best.language if best.language != 'Unknown' else ''})")
+        self.issues.append(rewrite("ingest", self.file_id, -1, "encoding-detected", detail))
+        if chaos >= WEAK_CHAOS or len(sample) < 512:
+            self.warnings.append(f"{detail}; a weak choice: check the text, or declare the encoding")
+        return choice
 
     def is_binary(self, data: bytes) -> bool:
         head = data[:8192]
@@ -174,21 +227,26 @@ class TextFile:
         except LookupError:
             raise DataError(f"{self.rel}: unknown encoding '{encoding}'; set the source's encoding to a "
                             "Python codec name such as 'cp1251', or 'detect'.") from None
-        n = 0
-        for start, raw, continued in split_lines(chunks, b"\n", MAX_LINE_BYTES):
-            if not continued:
-                n += 1
-            elif continued == 1:
+        n = replaced = 0
+        for start, raw, continued in split_lines(unify_byte_newlines(chunks), b"\n", self.max_line_bytes or MAX_LINE_BYTES):
+            if continued == 1:
                 self._note_cut(n)
-            raw = raw[:-1] if raw.endswith(b"\r") else raw
             try:
                 line = raw.decode(encoding)
             except UnicodeDecodeError as exc:
                 line = raw.decode(encoding, errors="replace")
-                self.issues.append(rewrite("ingest", self.file_id, n, "undecodable-bytes",
-                                           f"{self.rel} line {n} byte offset {skip + start + exc.start}: "
+                replaced += 1
+                at = n + (0 if continued else 1)
+                self.issues.append(rewrite("ingest", self.file_id, at, "undecodable-bytes",
+                                           f"{self.rel} line {at} byte offset {skip + start + exc.start}: "
                                            f"bytes not valid {encoding} replaced by U+FFFD"))
-            yield n, self._clean(line, n, skip + start)
+            for k, piece in enumerate(line.split("\x85") if "\x85" in line else (line,)):
+                if not continued or k:
+                    n += 1
+                yield n, self._clean(piece, n, skip + start)
+        if replaced and replaced > REPLACED_WARN * max(n, 1):
+            self.warnings.append(f"{self.rel}: {replaced} of {n} lines had bytes that are not valid {encoding} "
+                                 "(replaced by U+FFFD); declare the file's encoding, or encoding = 'detect'")
 
     def _wide_lines(self, chunks: Iterator[bytes], encoding: str) -> Iterator[tuple[int, str]]:
         """UTF-16 and UTF-32: decoded incrementally, then split; every piece after the last
@@ -204,19 +262,21 @@ class TextFile:
                 yield text
 
         n = 0
-        for _, line, continued in split_lines(text_chunks(), "\n", MAX_LINE_BYTES, keep_last=True):
+        for _, line, continued in split_lines(unify_text_newlines(text_chunks()), "\n", self.max_line_bytes or MAX_LINE_BYTES,
+                                              keep_last=True):
             if not continued:
                 n += 1
             elif continued == 1:
                 self._note_cut(n)
-            yield n, self._clean(line.rstrip("\r"), n, -1)
+            yield n, self._clean(line, n, -1)
         if replaced:
             self.issues.append(rewrite("ingest", self.file_id, -1, "undecodable-bytes",
                                        f"{self.rel}: {encoding} data with invalid code units replaced by U+FFFD"))
 
     def _note_cut(self, n: int) -> None:
         self.issues.append(rewrite("ingest", self.file_id, n, "long-line-cut",
-                                   f"{self.rel} line {n}: longer than {MAX_LINE_BYTES} bytes; read in pieces of that size"))
+                                   f"{self.rel} line {n}: longer than {self.max_line_bytes or MAX_LINE_BYTES} bytes; "
+                                   "read in pieces of that size"))
 
     def _clean(self, line: str, n: int, start: int) -> str:
         if "\x00" in line:
@@ -224,6 +284,113 @@ class TextFile:
                                        f"{self.rel} line {n}: {line.count(chr(0))} NUL characters removed"))
             line = line.replace("\x00", "")
         return line
+
+
+def unify_byte_newlines(chunks: Iterable[bytes]) -> Iterator[bytes]:
+    """CRLF and a lone CR become LF, also when a CRLF is split between two chunks.  (In the
+    ASCII-compatible encodings read this way, byte 0x0D is never part of a multi-byte character.)"""
+    pending_cr = False
+    for chunk in chunks:
+        if pending_cr and chunk[:1] == b"\n":
+            chunk = chunk[1:]
+        pending_cr = chunk[-1:] == b"\r"
+        if b"\r" in chunk:
+            chunk = chunk.replace(b"\r\n", b"\n").replace(b"\r", b"\n")
+        yield chunk
+
+
+def unify_text_newlines(chunks: Iterable[str]) -> Iterator[str]:
+    """The same for decoded text, where NEL (U+0085) also ends a line."""
+    pending_cr = False
+    for chunk in chunks:
+        if pending_cr and chunk[:1] == "\n":
+            chunk = chunk[1:]
+        pending_cr = chunk[-1:] == "\r"
+        if "\r" in chunk or "\x85" in chunk:
+            chunk = chunk.replace("\r\n", "\n").replace("\r", "\n").replace("\x85", "\n")
+        yield chunk
+
+
+def _utf16_without_bom(sample: bytes) -> str | None:
+    """UTF-16 without a BOM in a script other than Latin: the high bytes of the code units are
+    nearly all one value (0x04 for Cyrillic), and the text decodes to letters, not controls."""
+    import regex
+    if len(sample) < 64:
+        return None
+    sample = sample[:len(sample) // 2 * 2]
+    for name, high in (("utf-16-le", sample[1::2]), ("utf-16-be", sample[0::2])):
+        top = max(set(high), key=high.count)
+        if high.count(top) < 0.5 * len(high):
+            continue
+        try:
+            text = sample.decode(name)
+        except UnicodeDecodeError:
+            continue
+        letters = len(regex.findall(r"\p{L}", text))
+        controls = len(regex.findall(r"[\p{Cc}--[\t\n\r]]", text, flags=regex.V1))
+        if letters > 0.5 * len(text.replace(" ", "")) and controls <= 0.01 * len(text):
+            return name
+    return None
+
+
+def _mostly_not_utf8(head: bytes) -> bool:
+    """At least three lines with non-ASCII bytes, and most of them not valid UTF-8."""
+    lines = [ln for ln in _cut_at_line(head, len(head)).split(b"\n") if not ln.isascii()]
+    bad = 0
+    for ln in lines:
+        try:
+            ln.decode("utf-8")
+        except UnicodeDecodeError:
+            bad += 1
+    return len(lines) >= 3 and bad > len(lines) / 2
+
+
+def _cut_at_line(data: bytes, limit: int) -> bytes:
+    """``data`` up to ``limit`` bytes, cut after its last line break (if it has one)."""
+    if len(data) <= limit and len(data) < DETECT_BYTES:
+        return data
+    data = data[:limit]
+    at = data.rfind(b"\n")
+    return data[:at + 1] if at > 0 else data
+
+
+_IN_WORD_SYMBOL = None
+# Latin-script single-byte code pages decode one another's bytes into other letters (è or č):
+# among those the detector finds about as orderly, the one whose letters fit a language best.
+LATIN_PAGES = {"cp1250", "cp1252", "cp1254", "cp1257", "iso8859_2", "iso8859_9", "iso8859_15", "latin_1", "mac_roman"}
+
+
+def _prefer_coherent(matches):
+    best = matches[0]
+    if best.encoding not in LATIN_PAGES:
+        return best
+    close = [m for m in matches if m.encoding in LATIN_PAGES and m.percent_chaos <= best.percent_chaos + 0.5]
+    return max(close, key=lambda m: (m.percent_coherence, -matches.index(m)))
+
+
+
+def _prefer_sibling(chosen: str, sample: bytes, candidates: list[str]) -> str:
+    """Among the chosen code page and its siblings in the candidate list, the one whose text has
+    the fewest symbols between letters; the detector's choice on a tie."""
+    global _IN_WORD_SYMBOL
+    import regex
+    norm = codecs.lookup(chosen).name
+    family = next((f for f in SIBLINGS if norm in {codecs.lookup(x).name for x in f}), None)
+    if family is None:
+        return chosen
+    allowed = {codecs.lookup(c).name for c in candidates}
+    if _IN_WORD_SYMBOL is None:
+        _IN_WORD_SYMBOL = regex.compile(r"(?<=\p{L})[\p{S}\p{Co}\p{Cc}\p{Cn}\p{No}]|[\p{S}\p{Co}\p{Cc}\p{Cn}\p{No}](?=\p{L})")
+    scored = []
+    for rank, name in enumerate([chosen] + [f for f in family if codecs.lookup(f).name != norm]):
+        if codecs.lookup(name).name not in allowed:
+            continue
+        try:
+            text = sample.decode(name)
+        except UnicodeDecodeError:
+            continue
+        scored.append((len(_IN_WORD_SYMBOL.findall(text)) + 10 * text.count("\ufffd"), rank, name))
+    return min(scored)[2] if scored else chosen
 
 
 def split_lines(chunks: Iterable, sep, limit: int, keep_last: bool = False) -> Iterator[tuple[int, Any, int]]:

@@ -2,10 +2,11 @@
 from __future__ import annotations
 
 import json
+import re
 from dataclasses import dataclass
 from typing import Iterator
 
-from ..ledger import LedgerRow
+from ..ledger import LedgerRow, rewrite
 from ..recipe import param
 from ._decode import TextFile
 
@@ -18,7 +19,26 @@ class Options:
     contributor_field: str = param("contributor", help="the field naming the contributor")
 
 
+JSON_LINE_BYTES = 64 << 20   # one record may hold a whole book
+_SURROGATE = re.compile("[\ud800-\udfff]")
+
+
+def _without_lone_surrogates(value):
+    """JSON allows escapes of unpaired surrogates (RFC 8259 section 8.2); they are not text and
+    cannot be written as UTF-8.  Each becomes U+FFFD; returns the value and how many there were."""
+    if isinstance(value, str):
+        return _SURROGATE.subn("\ufffd", value) if _SURROGATE.search(value) else (value, 0)
+    if isinstance(value, list):
+        pairs = [_without_lone_surrogates(v) for v in value]
+        return [v for v, _ in pairs], sum(k for _, k in pairs)
+    if isinstance(value, dict):
+        pairs = {k: _without_lone_surrogates(v) for k, v in value.items()}
+        return {k: v for k, (v, _) in pairs.items()}, sum(n for _, n in pairs.values())
+    return value, 0
+
+
 def read(tf: TextFile, opts: Options) -> Iterator[dict]:
+    tf.max_line_bytes = JSON_LINE_BYTES
     for n, line in tf.lines():
         if not line.strip():
             continue
@@ -30,6 +50,11 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
             tf.issues.append(LedgerRow("ingest", "segment", "removed", f"{tf.file_id}:{n}", n, 1, "malformed-json",
                                        f"{tf.rel} line {n}: {str(exc)[:200]}; line skipped", None, line[:500]))
             continue
+        obj, fixed = _without_lone_surrogates(obj)
+        if fixed:
+            tf.issues.append(rewrite("ingest", tf.file_id, n, "lone-surrogates",
+                                     f"{tf.rel} line {n}: {fixed} lone surrogate escapes (\\ud800-\\udfff) "
+                                     "replaced by U+FFFD"))
         text = obj.get(opts.text_field)
         segments = text if isinstance(text, list) else str(text or "").split("\n")
         segments = [str(s) for s in segments if str(s).strip()]

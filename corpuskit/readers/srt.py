@@ -26,7 +26,8 @@ def _seconds(ts: str) -> float:
 def read(tf: TextFile, opts: Options) -> Iterator[dict]:
     segments, cues = [], []
     for block in blocks(list(tf.lines())):
-        timing_at = 1 if block[0][1].strip().lstrip("\ufeff").isdigit() else 0
+        # A cue is an optional identifier line (a number, or any text), then the timing line.
+        timing_at = 0 if "-->" in block[0][1] else 1
         m = TIMING.match(block[timing_at][1]) if len(block) > timing_at else None
         if not m:
             tf.issues.append(LedgerRow("ingest", "segment", "removed", tf.file_id, block[0][0], 1, "broken-cue-timing",
@@ -36,7 +37,7 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
         text, speaker = cue_text([t for _, t in block[timing_at + 1:]], opts.keep_tags)
         if text:
             segments.append(text)
-            cues.append({"line": block[0][0], "id": block[0][1].strip() if timing_at else None,
+            cues.append({"line": block[0][0], "id": block[0][1].strip().lstrip("\ufeff") if timing_at else None,
                          "start": _seconds(m.group(1)), "end": _seconds(m.group(2)), "speaker": speaker})
     if segments:
         yield {"key": "1", "segments": segments, "meta": {"file": tf.rel, "cues": cues}}

@@ -14,6 +14,7 @@ from pathlib import Path
 
 import regex
 
+from ..sheets import csv_text as _csv, neutralise_cell
 from ..storage import atomic_write_text
 from .stats import effective_number, heaps_fit, imbalance_ratio, jaccard, shannon_entropy, temperature_weights
 
@@ -141,7 +142,8 @@ class ScriptInventory:
         w.writerow(["source", "dialect", "script", "character", "code_point", "name", "count", "example"])
         for key in sorted(self.chars):
             src, dia, sc, ch = key
-            w.writerow([src, dia, sc, ch, f"U+{ord(ch):04X}", unicodedata.name(ch, ""), self.chars[key], self.examples[key]])
+            w.writerow([neutralise_cell(x) for x in (src, dia, sc, ch, f"U+{ord(ch):04X}", unicodedata.name(ch, ""))]
+                       + [self.chars[key], neutralise_cell(self.examples[key])])
         return buf.getvalue()
 
 
@@ -203,7 +205,6 @@ def _html_table(rows: list[dict]) -> str:
 
 
 def write_report(folder: Path, acc: Accumulator, params, recipe) -> dict:
-    from ..stages.export import _csv
     folder.mkdir(parents=True, exist_ok=True)
     tables = {a: acc.table(a) for a in AXES}
     for a, rows in tables.items():

@@ -115,6 +115,43 @@ def batch_shingle_hashes(texts: list[str], ngram: int, unit: str = "char", disti
             for i, (text, length) in enumerate(zip(texts, lengths))]
 
 
+LONG_TEXT = 1 << 20   # characters; longer texts are hashed window by window
+
+
+def shingles_of_texts(texts: list[str], ngram: int, unit: str) -> list[np.ndarray]:
+    """``batch_shingle_hashes`` (repeats kept) of each text; a text longer than LONG_TEXT is hashed
+    in overlapping windows, so memory does not grow with one document's size."""
+    short = [i for i, t in enumerate(texts) if len(t) <= LONG_TEXT]
+    out: list[np.ndarray] = [np.zeros(0, np.uint32)] * len(texts)
+    for i, h in zip(short, batch_shingle_hashes([texts[i] for i in short], ngram, unit, distinct=False)):
+        out[i] = h
+    for i in (i for i, t in enumerate(texts) if len(t) > LONG_TEXT):
+        out[i] = np.unique(np.concatenate([batch_shingle_hashes([w], ngram, unit, distinct=False)[0]
+                                           for w in _windows(texts[i], ngram, unit)]))
+    return out
+
+
+def _windows(text: str, ngram: int, unit: str):
+    """Windows of about LONG_TEXT characters, each overlapping the previous one by ngram - 1
+    characters (or words), so every n-gram lies wholly inside one window."""
+    start = 0
+    while start < len(text):
+        end = min(len(text), start + LONG_TEXT)
+        if unit == "word" and end < len(text):
+            cut = text.rfind(" ", start, end)
+            end = cut if cut > start else end
+        yield text[start:end] if unit != "word" or start == 0 else text[start:end].lstrip(" ")
+        if end >= len(text):
+            return
+        if unit == "word":
+            back = end
+            for _ in range(ngram - 1):
+                back = text.rfind(" ", start, back - 1) if back - 1 > start else start
+            start = max(back, start + 1)
+        else:
+            start = end - (ngram - 1)
+
+
 def permutations(num_perm: int, seed: int = SCHEME_SEED) -> tuple[np.ndarray, np.ndarray]:
     rng = np.random.default_rng(seed)
     a = rng.integers(1, 2**32, size=num_perm, dtype=np.uint64) | np.uint64(1)
@@ -144,6 +181,14 @@ def batch_signatures(hash_sets: list[np.ndarray], a: np.ndarray, b: np.ndarray,
     a32, b32 = a.astype(np.uint32)[:, None], b.astype(np.uint32)[:, None]
     sigs = np.full((len(hash_sets), len(a)), 0xFFFFFFFF, dtype=np.uint32)
     lengths = np.array([len(h) for h in hash_sets], dtype=np.int64)
+    for row in np.flatnonzero(lengths > chunk_shingles).tolist():
+        # A very long document alone, in slices (a running minimum): memory stays one slice.
+        for at in range(0, int(lengths[row]), chunk_shingles):
+            part = hash_sets[row][at:at + chunk_shingles].astype(np.uint32, copy=False)
+            perm = np.multiply.outer(a32[:, 0], part)
+            np.add(perm, b32, out=perm)
+            np.minimum(sigs[row], perm.min(axis=1), out=sigs[row])
+    lengths = np.where(lengths > chunk_shingles, 0, lengths)
     start = 0
     while start < len(hash_sets):
         stop, total = start, 0
@@ -175,7 +220,7 @@ def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params,
     docs = cache.read_docs(in_stage, in_key)
     a, b = permutations(params.num_perm)
     texts = [" ".join(doc["segments"]) for doc in docs]
-    hash_sets = batch_shingle_hashes(texts, params.ngram, params.shingle, distinct=False)
+    hash_sets = shingles_of_texts(texts, params.ngram, params.shingle)
     seg_hashes = [segment_hash(s) for doc in docs for s in doc["segments"]]
     seg_offsets = np.cumsum([0] + [len(doc["segments"]) for doc in docs])
     sigs = batch_signatures(hash_sets, a, b) if docs else np.zeros((0, params.num_perm), np.uint32)

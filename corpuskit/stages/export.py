@@ -9,9 +9,7 @@ splits or tokenizer.
 """
 from __future__ import annotations
 
-import csv
 import hashlib
-import io
 import json
 import sys
 import unicodedata
@@ -25,6 +23,7 @@ import numpy as np
 
 from ..ledger import Counts, conservation
 from ..recipe import param
+from ..sheets import csv_text
 from ..storage import atomic_write_text, file_sha256, stable_hash
 from . import tokenizer as tok
 from . import transliterate as translit
@@ -121,16 +120,6 @@ def _langid_threshold(runner) -> float | None:
     return None
 
 
-def _csv(rows: list[dict], columns: list[str] | None = None) -> str:
-    columns = columns or (list(rows[0]) if rows else ["empty"])
-    buf = io.StringIO()
-    w = csv.DictWriter(buf, fieldnames=columns, lineterminator="\n", extrasaction="ignore")
-    w.writeheader()
-    for r in rows:
-        w.writerow(r)
-    return buf.getvalue()
-
-
 def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     from ..reports import balance, datasheet
 
@@ -174,23 +163,23 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         for reason, n in sorted(s.counts.removed.items()):
             removal_rows.append({"stage": s.name, "reason": reason, "removed": n,
                                  "examples": " | ".join(removal_examples.get(f"{s.name}:{reason.split(':', 1)[1]}", []))})
-    atomic_write_text(rep / "removals.csv", _csv(removal_rows, ["stage", "reason", "removed", "examples"]))
-    atomic_write_text(rep / "rewrites.csv", _csv([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
+    atomic_write_text(rep / "removals.csv", csv_text(removal_rows, ["stage", "reason", "removed", "examples"]))
+    atomic_write_text(rep / "rewrites.csv", csv_text([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
     extra = _stage_reports(runner, rep, out / "private", review)
-    atomic_write_text(rep / "variants.csv", _csv(variants_report(stats.types["dialect"], variant_rewrites),
+    atomic_write_text(rep / "variants.csv", csv_text(variants_report(stats.types["dialect"], variant_rewrites),
                                                  ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
-    atomic_write_text(rep / "sources.csv", _csv(source_rows, SOURCE_COLUMNS))
+    atomic_write_text(rep / "sources.csv", csv_text(source_rows, SOURCE_COLUMNS))
     translit_rows = transliteration_report(recipe, round_trip)
     if translit_rows:
-        atomic_write_text(rep / "transliteration.csv", _csv(translit_rows, ["table", "line", "from", "to", "reversible", "reason"]))
+        atomic_write_text(rep / "transliteration.csv", csv_text(translit_rows, ["table", "line", "from", "to", "reversible", "reason"]))
     if nfkc_folds:
-        atomic_write_text(rep / "compatibility-folds.csv", _csv(
+        atomic_write_text(rep / "compatibility-folds.csv", csv_text(
             [{"code_point": c, "character": chr(int(c[2:], 16)), "folded_to": unicodedata.normalize("NFKC", chr(int(c[2:], 16))),
               "name": unicodedata.name(chr(int(c[2:], 16)), ""), "count": n} for c, n in sorted(nfkc_folds.items())],
             ["code_point", "character", "folded_to", "name", "count"]))
-    atomic_write_text(rep / "splits.csv", _csv(split_sizes(split_counts), ["dialect", "split", "documents", "segments", "share"]))
+    atomic_write_text(rep / "splits.csv", csv_text(split_sizes(split_counts), ["dialect", "split", "documents", "segments", "share"]))
 
     summary = {
         "stages": [{"stage": s.name, **s.counts.as_dict()} for s in reports] + [{"stage": "export", **counts.as_dict()}],
@@ -258,7 +247,7 @@ def _write_private(out: Path, people: dict[str, str], secret: bytes | None) -> d
     """The private folder: its README, the pseudonym mapping and a copy of the secret."""
     folder = out / "private"
     atomic_write_text(folder / "README.txt", PRIVATE_README)
-    atomic_write_text(folder / "pseudonyms.csv", _csv([{"name": n, "pseudonym": p} for n, p in sorted(people.items())],
+    atomic_write_text(folder / "pseudonyms.csv", csv_text([{"name": n, "pseudonym": p} for n, p in sorted(people.items())],
                                                       ["name", "pseudonym"]))
     if secret:
         atomic_write_text(folder / "pseudonym-secret.txt", secret.hex() + "\n")
@@ -442,7 +431,8 @@ def _sample_lines(cache, names: list[str], summaries: list[dict], samples: Sampl
         if not summary["sample_groups"]:
             continue
         lines = read_section(cache.blob_path("export", f"{name}.bin"), summary["sections"]["sample.jsonl"])
-        SampleMerger.read(lines.decode("utf-8").splitlines(), summary["sample_groups"], _priorities(cache, summary),
+        # JSON lines: split at LF only (U+2028 and U+2029 are not line breaks here)
+        SampleMerger.read(lines.decode("utf-8").split("\n")[:-1], summary["sample_groups"], _priorities(cache, summary),
                           cutoffs, chosen)
     return {g: [text for _, text in sorted(items)] for g, items in chosen.items()}
 
@@ -468,7 +458,7 @@ def _tokenizer(out: Path, cache, params: Params, recipe, train_lines: list[str],
     (out / "tokenizer").mkdir(parents=True, exist_ok=True)
     from ..storage import atomic_write_bytes
     atomic_write_bytes(out / "tokenizer" / "tokenizer.model", model)
-    atomic_write_text(out / "tokenizer" / "dialects.csv", _csv(rows))
+    atomic_write_text(out / "tokenizer" / "dialects.csv", csv_text(rows))
     summary = {"trained": True, "model_type": params.model_type, "vocab_requested": params.vocab_size,
                "vocab_used": used, "character_coverage": 1.0, "normalization": "identity",
                "train_lines": len(train_lines), "evaluated_on": evaluated_on}
@@ -482,7 +472,7 @@ def _stage_reports(runner, rep: Path, private: Path, review) -> dict:
     if cache.has_blob("dedup", "report.json"):
         d = cache.get_json("dedup", "report.json")
         atomic_write_text(rep / "duplicate-clusters.csv",
-                          _csv(d["clusters"], ["cluster", "doc_id", "source", "kept", "kept_id", "max_similarity"]))
+                          csv_text(d["clusters"], ["cluster", "doc_id", "source", "kept", "kept_id", "max_similarity"]))
         d = {k: v for k, v in d.items() if k != "clusters"}
         atomic_write_text(rep / "dedup.json", json.dumps(d, indent=2, sort_keys=True) + "\n")
         extra["dedup_params"] = d
@@ -495,16 +485,15 @@ def _stage_reports(runner, rep: Path, private: Path, review) -> dict:
         if "confusion" in r:
             labels = r["labels"]
             atomic_write_text(rep / "langid-confusion.csv",
-                              _csv([{"gold": g, **{p: r["confusion"][g][p] for p in labels}} for g in labels], ["gold"] + labels))
+                              csv_text([{"gold": g, **{p: r["confusion"][g][p] for p in labels}} for g in labels], ["gold"] + labels))
             atomic_write_text(rep / "langid-classes.csv",
-                              _csv([{"label": k, **v} for k, v in sorted(r["per_class"].items())],
+                              csv_text([{"label": k, **v} for k, v in sorted(r["per_class"].items())],
                                    ["label", "precision", "recall", "f1", "support"]))
         extra["langid_summary"] = {"accuracy": r.get("accuracy"), "macro_f1": r.get("macro_f1"),
                                    "threshold": r.get("threshold"), "examples": r.get("examples")}
         from .langid import review_rows
-        from ..variants_table import neutralise_cell
         rows = review_rows(review.best(), r["threshold"]["value"], recipe.stages["langid"].review_size)
         atomic_write_text(private / "langid-review.csv",
-                          _csv([{k: neutralise_cell(str(v)) for k, v in x.items()} for x in rows],
+                          csv_text([{k: str(v) for k, v in x.items()} for x in rows],
                                ["doc_id", "text", "p_target", "label"]))
     return extra

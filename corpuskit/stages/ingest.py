@@ -81,7 +81,7 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
         for folder in sorted(by_folder):  # one document per booklet folder, pages in order
             segments, pages = [], []
             for path, rel in by_folder[folder]:
-                tf = TextFile(Path(path), rel, source.id, source.encoding, issues, warnings)
+                tf = TextFile(Path(path), rel, source.id, source.encoding, issues, warnings, tuple(source.encodings))
                 for d in reader.read(tf, opts):
                     pages.append({"file": rel, "first": len(segments), "count": len(d["segments"])})
                     segments.extend(d["segments"])
@@ -90,7 +90,7 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
                                    meta={"folder": folder, "pages": pages}, **base)
         return
     for path, rel in files:
-        tf = TextFile(Path(path), rel, source.id, source.encoding, issues, warnings)
+        tf = TextFile(Path(path), rel, source.id, source.encoding, issues, warnings, tuple(source.encodings))
         if source.format == "warc":
             tf.lines = lambda: iter(())  # the WARC reader streams records itself
         for d in reader.read(tf, opts):

@@ -11,8 +11,6 @@ undetermined and follow their neighbours.
 from __future__ import annotations
 
 import csv
-import io
-import json
 import os
 import random
 import tempfile
@@ -363,14 +361,3 @@ def report_json(cache, ctx_name: str) -> dict:
     return cache.get_json("langid", ctx_name)
 
 
-def dumps(obj) -> str:  # pragma: no cover
-    return json.dumps(obj, indent=2, sort_keys=True)
-
-
-def csv_text(rows: list[dict], columns: list[str]) -> str:
-    buf = io.StringIO()
-    w = csv.DictWriter(buf, fieldnames=columns, lineterminator="\n")
-    w.writeheader()
-    for r in rows:
-        w.writerow(r)
-    return buf.getvalue()
