@@ -81,8 +81,18 @@ def _summary(result) -> None:
         out.print(f"Conservation: documents {cd['in']} = {cd['kept']} kept + {cd['removed']} removed; "
                   f"segments {cs['in']} = {cs['kept']} kept + {cs['removed']} removed: "
                   + ("[green]holds[/]" if ok else "[red]FAILS[/]"), highlight=False)
-    for w in result.warnings[:20]:
-        err.print(f"[yellow]warning:[/] {escape(w)}", highlight=False, soft_wrap=True)
+    _warnings(result.warnings)
+
+
+def _warnings(warnings: list[str], limit: int = 20) -> None:
+    """The closing warnings block: one line each, the first ``limit``, the rest counted."""
+    if not warnings:
+        return
+    err.print(f"\n[bold yellow]Warnings ({len(warnings)})[/]", highlight=False)
+    for w in warnings[:limit]:
+        err.print(f"[yellow]-[/] {escape(w)}", highlight=False, soft_wrap=True)
+    if len(warnings) > limit:
+        err.print(f"... and {len(warnings) - limit} more in run.log", highlight=False)
 
 
 def _where(result) -> None:
@@ -152,17 +162,23 @@ def check(recipe: Path = typer.Argument(..., help="the recipe TOML file")) -> No
     from .reports.datasheet import load_answers, unanswered
     from .recipe import load_recipe
     from .runner import Runner
+    from .validate import validate
 
     try:
         r = load_recipe(recipe)
         files = {s.id: len(r.source_files(s)) for s in r.sources}
-        Runner(r, Path("/nonexistent"), None).ingest_units()
+        notes = validate(r)
+        runner = Runner(r, Path("/nonexistent"), None)
+        runner.ingest_units()
+        notes += runner.warnings
         for name, stage in __import__("corpuskit.stages.registry", fromlist=["STAGES"]).STAGES.items():
             if hasattr(stage, "context_key"):
                 stage.context_key(r, r.stages[name])
         open_q = unanswered(load_answers(r))
     except CorpusError as exc:
         _fail(exc)
+    for note in notes:
+        err.print(f"[yellow]warning:[/] {escape(note)}", highlight=False, soft_wrap=True)
     out.print(f"{recipe}: valid; {len(r.sources)} sources, "
               + ", ".join(f"{k} ({v} files)" for k, v in files.items()), highlight=False, markup=False)
     if open_q:

@@ -7,18 +7,15 @@ may not leave it unless ``[corpus] allow_outside_paths = true``.
 """
 from __future__ import annotations
 
-import dataclasses
-import difflib
 import glob
 import hashlib
 import os
 import tomllib
-import types
-import typing
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from .config import Checked, build, param, suggest as _suggest
 from .errors import RecipeError
 
 __all__ = ["Recipe", "CorpusSpec", "SourceSpec", "load_recipe", "build", "MEDIA", "CONSENT_SCOPES"]
@@ -33,18 +30,8 @@ CONSENT_SCOPES = {
 }
 
 
-def param(default: Any = dataclasses.MISSING, *, help: str = "", low: float | None = None,
-          high: float | None = None, choices: tuple[str, ...] | None = None, **kw: Any) -> Any:
-    """A dataclass field with the metadata the validator reads."""
-    meta = {"help": help, "low": low, "high": high, "choices": choices}
-    if isinstance(default, (list, dict)):
-        value = default
-        return field(default_factory=lambda: type(value)(value), metadata=meta, **kw)
-    return field(default=default, metadata=meta, **kw)
-
-
 @dataclass(frozen=True)
-class CorpusSpec:
+class CorpusSpec(Checked):
     name: str = param(help="a short name for the corpus")
     language: str = param(help="the target language as a BCP 47 tag, e.g. qxk")
     target_script: str = param("Latn", help="ISO 15924 code of the script the corpus is written in")
@@ -58,14 +45,14 @@ class CorpusSpec:
     pseudonym_secret: str = param("private/pseudonym-secret.txt",
                                   help="file (relative to the recipe) holding the secret that makes people's pseudonyms; "
                                        "created on the first run; keep it private and keep it")
-    max_files_per_source: int = param(20000, low=1, help="refuse globs matching more files")
-    partition_docs: int = param(2000, low=1, help="documents per partition")
-    shard_docs: int = param(5000, low=1, help="documents per output shard at most; shards hold whole partitions, "
+    max_files_per_source: int = param(20000, low=1, high=10_000_000, help="refuse globs matching more files")
+    partition_docs: int = param(2000, low=1, high=1_000_000, help="documents per partition")
+    shard_docs: int = param(5000, low=1, high=100_000_000, help="documents per output shard at most; shards hold whole partitions, "
                                                   "so a partition larger than this is a shard of its own")
 
 
 @dataclass(frozen=True)
-class SourceSpec:
+class SourceSpec(Checked):
     id: str = param(help="a short unique name for the source")
     path: str = param(help="a file or glob relative to the recipe")
     format: str = param(help="the reader to use")
@@ -230,64 +217,6 @@ def resolve_inside(folder: Path, value: str, key: str, recipe_path: Path, allowe
     return path
 
 
-# -- validation -------------------------------------------------------------------------
-
-def _suggest(key: str, known: typing.Iterable[str]) -> str:
-    close = difflib.get_close_matches(key, list(known), n=1, cutoff=0.6)
-    return f"; did you mean '{close[0]}'?" if close else f"; known keys: {', '.join(sorted(known))}."
-
-
-def _type_name(tp: Any) -> str:
-    return {str: "a string", int: "an integer", float: "a number", bool: "true or false",
-            list: "a list", dict: "a table"}.get(tp, str(tp))
-
-
-def _check_value(value: Any, tp: Any, meta: dict, where: str) -> Any:
-    origin = typing.get_origin(tp)
-    if origin in (typing.Union, types.UnionType):
-        args = [a for a in typing.get_args(tp) if a is not type(None)]
-        tp, origin = args[0], typing.get_origin(args[0])
-    base = origin or tp
-    if base is float and isinstance(value, int) and not isinstance(value, bool):
-        value = float(value)
-    ok = isinstance(value, base) and not (base in (int, float) and isinstance(value, bool))
-    if not ok:
-        raise RecipeError(f"{where} must be {_type_name(base)}, got {value!r}; {meta.get('help') or 'fix the value'}.")
-    if base is list:
-        (item_tp,) = typing.get_args(tp) or (Any,)
-        if item_tp in (str, int, float) and not all(isinstance(v, item_tp) for v in value):
-            raise RecipeError(f"{where} must be a list of {_type_name(item_tp)}s, got {value!r}.")
-        value = tuple(value)
-    low, high, choices = meta.get("low"), meta.get("high"), meta.get("choices")
-    if low is not None and value < low or high is not None and value > high:
-        raise RecipeError(f"{where} = {value!r} is out of range; use a value between {low} and {high}.")
-    if choices and value not in choices:
-        raise RecipeError(f"{where} = {value!r} is not allowed{_suggest(str(value), choices)[:-1] if difflib.get_close_matches(str(value), choices, n=1) else ''}; "
-                          f"use one of: {', '.join(choices)}.")
-    return value
-
-
-def build(cls: type, table: Any, where: str, file: Path | str) -> Any:
-    """Build the frozen dataclass ``cls`` from a TOML table, with clear errors."""
-    if not isinstance(table, dict):
-        raise RecipeError(f"{file}: {where} must be a table, got {table!r}.")
-    fields = {f.name: f for f in dataclasses.fields(cls) if f.init}
-    hints = typing.get_type_hints(cls)
-    for key in table:
-        if key not in fields:
-            raise RecipeError(f"{file}: {where} has unknown key '{key}'{_suggest(key, fields)}")
-    values = {}
-    for name, f in fields.items():
-        if name in table:
-            values[name] = _check_value(table[name], hints[name], dict(f.metadata), f"{file}: {where} key '{name}'")
-        elif f.default is dataclasses.MISSING and f.default_factory is dataclasses.MISSING:  # type: ignore[misc]
-            raise RecipeError(f"{file}: {where} is missing key '{name}'; add {name} = ... ({f.metadata.get('help', '')}).")
-    try:
-        return cls(**values)
-    except ValueError as exc:
-        raise RecipeError(f"{file}: {where}: {exc}") from None
-
-
 def load_recipe(path: str | os.PathLike) -> Recipe:
     from .stages.registry import STAGES  # the stages declare their own parameter tables
 
@@ -325,6 +254,11 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
             raise RecipeError(f"{path}: {where} key 'format' = '{src.format}' is not a known reader"
                               f"{_suggest(src.format, READERS)}")
         _check_licence(src.licence, f"{where} key 'licence'", path)
+        build(READERS[src.format].Options, src.options, f"{where} options", path)
+        for code in src.encodings:
+            _check_codec(code, f"{where} key 'encodings'", path)
+        if src.encoding.lower() != "detect":
+            _check_codec(src.encoding, f"{where} key 'encoding'", path)
         if not corpus.allow_outside_paths:
             static = os.path.dirname(glob_prefix(src.path)) or "."
             resolve_inside(path.parent, static, f"{where} key 'path'", path, False)
@@ -343,6 +277,15 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
               for name, stage in STAGES.items()}
     return Recipe(path=path.resolve(), sha256=hashlib.sha256(raw).hexdigest(), corpus=corpus,
                   sources=tuple(sources), stages=stages)
+
+
+def _check_codec(name: str, where: str, path: Path) -> None:
+    import codecs
+    try:
+        codecs.lookup(name)
+    except LookupError:
+        raise RecipeError(f"{path}: {where} = '{name}' is not an encoding Python knows; use a codec name such as "
+                          "'utf-8', 'cp1251' or 'koi8_r', or encoding = 'detect'.") from None
 
 
 def _check_regions(corpus: CorpusSpec, path: Path) -> None:

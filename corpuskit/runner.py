@@ -110,15 +110,23 @@ def run_ingest_task(cache_root: str, source: SourceSpec, files: list[tuple[str, 
     warnings: list[str] = []
     keys = []
     total = Counts()
+    trouble: dict[str, list] = {}
     for i, (docs, rows) in enumerate(ingest.ingest_unit(source, files, partition_docs, warnings)):
         key = f"{unit_key}-{i:04d}"
         counts = ingest.counts(docs, rows)
+        for r in rows:
+            if r.reason not in QUIET_INGEST_REASONS:
+                trouble.setdefault(r.reason, [0, r.detail.split(":", 1)[0] or r.doc_id])[0] += 1
         cache.write_partition("ingest", key, docs, rows, {"counts": counts.as_dict()})
         keys.append(key)
         total = total.add(counts)
-    marker = {"parts": keys, "counts": total.as_dict(), "warnings": warnings}
+    marker = {"parts": keys, "counts": total.as_dict(), "warnings": warnings, "trouble": trouble}
     cache.put_json("ingest", f"{unit_key}.unit.json", marker)
     return marker
+
+
+# Ingest rows that are not trouble (the ledger keeps them; the terminal does not list them).
+QUIET_INGEST_REASONS = {"whitespace-only", "encoding-detected"}
 
 
 def run_map_task(cache_root: str, stage_name: str, params: Any, ctx: Any, in_stage: str, in_key: str,
@@ -191,8 +199,10 @@ class Runner:
     def run(self, until: str | None = None, only: str | None = None) -> RunResult:
         for name in (until, only):
             if name and name not in STAGE_ORDER:
-                from .recipe import _suggest
-                raise RecipeError(f"stage '{name}' is not known{_suggest(name, STAGE_ORDER)}")
+                from .config import suggest
+                raise RecipeError(f"stage '{name}' is not known{suggest(name, STAGE_ORDER)}")
+        from .validate import validate
+        self.warnings.extend(validate(self.recipe))   # everything a stage would fail on, before any stage
         last = until or only or STAGE_ORDER[-1]
         reports: list[StageReport] = []
         parts = self._ingest(reports, execute=not only or only == "ingest")
@@ -226,13 +236,18 @@ class Runner:
                 tick(Counts.from_dict(marker["counts"]).docs_out)
         self._rest(bool(todo))
         parts = []
+        trouble: dict[str, list] = {}
         for source, _, key in units:
             marker = self.cache.get_json("ingest", f"{key}.unit.json")
             self.warnings.extend(marker.get("warnings", []))
+            for reason, (n, first) in sorted(marker.get("trouble", {}).items()):
+                trouble.setdefault(reason, [0, first])[0] += n
             report.counts = report.counts.add(Counts.from_dict(marker["counts"]))
             parts.extend(Partition(source.id, k) for k in marker["parts"])
         report.computed, report.reused = len(todo), len(units) - len(todo)
         self.last_keys = {"ingest": [p.key for p in parts]}
+        self.warnings.extend(f"ingest: {reason} x{n} (first: {first}); the rows are in private/ledger.jsonl.gz, "
+                             "stage ingest" for reason, (n, first) in sorted(trouble.items()))
         report.seconds = time.perf_counter() - started
         reports.append(report)
         return parts

@@ -273,6 +273,14 @@ class TextFile:
             self.issues.append(rewrite("ingest", self.file_id, -1, "undecodable-bytes",
                                        f"{self.rel}: {encoding} data with invalid code units replaced by U+FFFD"))
 
+    def whitespace_only(self, n: int, line: str) -> None:
+        """A line of spaces only (not empty) is no segment: a ledger row says it was left out."""
+        if line:
+            names = sorted({f"U+{ord(c):04X}" for c in line})
+            self.issues.append(LedgerRow("ingest", "segment", "removed", f"{self.file_id}:{n}", n, 1, "whitespace-only",
+                                         f"{self.rel} line {n}: only white space ({', '.join(names[:5])}); left out",
+                                         None, None))
+
     def _note_cut(self, n: int) -> None:
         self.issues.append(rewrite("ingest", self.file_id, n, "long-line-cut",
                                    f"{self.rel} line {n}: longer than {self.max_line_bytes or MAX_LINE_BYTES} bytes; "

@@ -7,20 +7,31 @@ from dataclasses import dataclass
 from typing import Iterator
 
 from ..ledger import LedgerRow
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 
 csv.field_size_limit(64 << 20)
 
 
 @dataclass(frozen=True)
-class Options:
+class Options(Checked):
     text_column: str = param("text", help="the column holding the text")
     id_column: str = param("", help="a column with a stable row id")
     dialect_column: str = param("", help="a column naming the row's dialect")
     contributor_column: str = param("", help="a column naming the (pseudonymous) contributor")
     date_column: str = param("", help="a column with the row's date")
     delimiter: str = param(",", help="the field separator; use '\\t' for TSV")
+
+
+DELIMITERS = (",", ";", "\t", "|")
+
+
+def sniff_delimiter(header_line: str, text_column: str) -> str | None:
+    """The common delimiter under which the header has ``text_column``, if one does."""
+    for d in DELIMITERS:
+        if text_column in next(csv.reader([header_line], delimiter=d), []):
+            return d
+    return None
 
 
 def read(tf: TextFile, opts: Options) -> Iterator[dict]:
@@ -36,6 +47,11 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
     delim = "\t" if opts.delimiter in ("\\t", "tab") else opts.delimiter
     header_n, header_line = first_line
     header = next(csv.reader([header_line], delimiter=delim))
+    if opts.text_column not in header and (other := sniff_delimiter(header_line, opts.text_column)):
+        tf.warnings.append(f"{tf.rel}: the header is separated by {other!r}, not {delim!r}; read with {other!r} "
+                           "(set options.delimiter to silence this)")
+        delim = other
+        header = next(csv.reader([header_line], delimiter=delim))
     if opts.text_column not in header:
         from ..errors import DataError
         raise DataError(f"{tf.rel} line {header_n}: no column '{opts.text_column}' in the header "
@@ -69,6 +85,8 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
         text = get(opts.text_column)
         if not text:
             continue
+        for blank in (t for t in text.split("\n") if t and not t.strip()):
+            tf.whitespace_only(first, blank)
         doc = {"key": get(opts.id_column) or f"{first}", "segments": [t for t in text.split("\n") if t.strip()],
                "meta": {"file": tf.rel, "lines": [first]}}
         for field_name, column in (("dialect", opts.dialect_column), ("contributor", opts.contributor_column),

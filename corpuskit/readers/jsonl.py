@@ -7,12 +7,12 @@ from dataclasses import dataclass
 from typing import Iterator
 
 from ..ledger import LedgerRow, rewrite
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 
 
 @dataclass(frozen=True)
-class Options:
+class Options(Checked):
     text_field: str = param("text", help="the field with the text (a string or a list of segments)")
     id_field: str = param("id", help="the field with a stable id")
     dialect_field: str = param("dialect", help="the field naming the dialect")
@@ -57,6 +57,8 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
                                      "replaced by U+FFFD"))
         text = obj.get(opts.text_field)
         segments = text if isinstance(text, list) else str(text or "").split("\n")
+        for blank in (str(s) for s in segments if str(s) and not str(s).strip()):
+            tf.whitespace_only(n, blank)
         segments = [str(s) for s in segments if str(s).strip()]
         if not segments:
             continue

@@ -12,17 +12,18 @@ from typing import Iterator
 
 from ..errors import RecipeError
 from ..ledger import LedgerRow
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 
 DEFAULT_PATTERN = r"^\[(?P<timestamp>[^\]]+)\] (?P<sender>[^:]{1,60}): (?P<text>.*)$"
 
 
 @dataclass(frozen=True)
-class Options:
+class Options(Checked):
     line_pattern: str = param(DEFAULT_PATTERN, help="a regular expression with groups sender and text")
 
     def __post_init__(self):
+        super().__post_init__()
         try:
             pat = re.compile(self.line_pattern)
         except re.error as exc:
@@ -36,6 +37,7 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
     current: dict | None = None
     for n, line in tf.lines():
         if not line.strip():
+            tf.whitespace_only(n, line)
             continue
         m = pattern.match(line)
         if m:

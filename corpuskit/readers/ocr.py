@@ -9,12 +9,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Iterator
 
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 
 
 @dataclass(frozen=True)
-class Options:
+class Options(Checked):
     booklet: str = param("folder", choices=("folder", "file"),
                          help="what one document is: the pages of a folder, or each page file")
 

@@ -4,12 +4,12 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Iterator
 
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 
 
 @dataclass(frozen=True)
-class Options:
+class Options(Checked):
     unit: str = param("paragraph", choices=("line", "paragraph", "file"),
                       help="what one document is: a line, a blank-line separated paragraph, or the file")
 
@@ -27,9 +27,13 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
         if opts.unit == "line":
             if line.strip():
                 yield {"key": f"{n}", "segments": [line], "meta": {"file": tf.rel, "lines": [n]}}
+            else:
+                tf.whitespace_only(n, line)
         elif not line.strip():
-            if opts.unit == "paragraph":
+            if opts.unit == "paragraph":   # a blank line ends a paragraph
                 yield from flush()
+            else:
+                tf.whitespace_only(n, line)
         else:
             block.append((n, line))
     yield from flush()

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 from typing import Iterator
 
 from ..ledger import LedgerRow
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 from .webvtt import blocks, cue_text
 
@@ -14,7 +14,7 @@ TIMING = re.compile(r"^\s*(\d{1,2}:\d{2}:\d{2}[,.]\d{1,3})\s*-->\s*(\d{1,2}:\d{2
 
 
 @dataclass(frozen=True)
-class Options:
+class Options(Checked):
     keep_tags: bool = param(False, help="keep <i>, <b> and font tags in the text")
 
 

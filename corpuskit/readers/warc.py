@@ -8,7 +8,7 @@ from html.parser import HTMLParser
 from typing import Iterator
 
 from ..ledger import LedgerRow, rewrite
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 
 BLOCK_TAGS = {"p", "div", "br", "li", "h1", "h2", "h3", "h4", "h5", "h6", "tr", "td", "th",
@@ -17,8 +17,8 @@ SKIP_TAGS = {"script", "style", "noscript", "template", "svg"}
 
 
 @dataclass(frozen=True)
-class Options:
-    max_record_bytes: int = param(5_000_000, low=1, help="skip larger records")
+class Options(Checked):
+    max_record_bytes: int = param(5_000_000, low=1, high=1 << 31, help="skip larger records")
 
 
 class _Text(HTMLParser):

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from typing import Iterator
 
 from ..ledger import LedgerRow
-from ..recipe import param
+from ..config import Checked, param
 from ._decode import TextFile
 
 # hh:mm:ss.ttt or mm:ss.ttt, per the WebVTT timestamp grammar.
@@ -23,7 +23,7 @@ TAG = re.compile(r"</?[a-z0-9.]+(?:[ \t][^>]*)?>|<\d{2}:[^>]*>", re.I)
 
 
 @dataclass(frozen=True)
-class Options:
+class Options(Checked):
     keep_tags: bool = param(False, help="keep cue markup tags in the text")
 
 

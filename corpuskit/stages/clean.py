@@ -21,7 +21,7 @@ import numpy as np
 import regex
 
 from ..ledger import LedgerRow, remove_document, remove_segment
-from ..recipe import param
+from ..config import Checked, param
 from ..storage import digest64
 from ._base import drop_empty, no_context, no_context_key
 
@@ -29,21 +29,21 @@ VERSION = "4"
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     annotation_pattern: str = param(r"\[[^\]\n]{1,40}\]|\((?:laughs?|music|inaudible|noise|applause|pause|crosstalk|coughs?|silence)\)",
                                     help="non-speech annotations in transcripts")
     speaker_pattern: str = param(r"^(?P<speaker>[\p{Lu}][\p{L}\p{M}'. -]{0,30}):\s+",
                                  help="a speaker label at the start of a cue")
-    join_gap: float = param(1.5, low=0, help="largest pause (s) between cue fragments that are joined")
+    join_gap: float = param(1.5, low=0, high=3600, help="largest pause (s) between cue fragments that are joined")
     header_lines: int = param(2, low=0, high=5, help="lines at the top and bottom of a page checked for headers")
-    header_min_pages: int = param(3, low=2, help="a header must repeat on at least this many pages")
+    header_min_pages: int = param(3, low=2, high=100_000, help="a header must repeat on at least this many pages")
     header_share: float = param(0.3, low=0, high=1, help="... and on at least this share of the pages")
     hyphens: str = param("-\u00ad\u00ac\u2010", help="characters that mark a line-end hyphenation")
     join_lines: bool = param(True, help="rejoin broken OCR lines into paragraphs")
     system_pattern: str = param(r"^(?:.{0,40}\b(?:joined|left|was added|was removed|changed the (?:group|subject)|created group)\b.{0,40}|<media omitted>|message deleted)$",
                                 help="message-export system lines")
     forward_pattern: str = param(r"^(?:fwd?:|\[forwarded\]|forwarded:|>>)\s*", help="marker of a forwarded message")
-    boilerplate_min_pages: int = param(3, low=2, help="a web line repeated on this many pages is boilerplate")
+    boilerplate_min_pages: int = param(3, low=2, high=1_000_000, help="a web line repeated on this many pages is boilerplate")
     boilerplate_share: float = param(0.2, low=0, high=1, help="... and on this share of the pages")
 
 

@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from ..ledger import LedgerRow, remove_document, remove_segment
-from ..recipe import param
+from ..config import Checked, param
 from ..storage import Cache, atomic_write_bytes, digest64, stable_hash
 
 VERSION = "2"
@@ -31,16 +31,16 @@ SCHEME_SEED = 20261201
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     num_perm: int = param(128, low=16, high=1024, help="MinHash permutations")
     threshold: float = param(0.7, low=0.1, high=1.0, help="Jaccard similarity at which documents are near-duplicates")
     shingle: str = param("char", choices=("char", "word"), help="n-grams of characters or of words")
     ngram: int = param(5, low=1, high=20, help="n-gram length")
-    min_shingles: int = param(5, low=1, help="documents with fewer n-grams only take part in exact-duplicate removal")
+    min_shingles: int = param(5, low=1, high=100_000, help="documents with fewer n-grams only take part in exact-duplicate removal")
     fp_weight: float = param(0.3, low=0.0, high=1.0, help="LSH false-positive weight (false-negative weight is 1 minus it)")
     source_priority: list[str] = param([], help="source ids, most trusted first, for choosing which twin to keep")
-    boilerplate_min_docs: int = param(5, low=2, help="a segment in this many documents ...")
-    boilerplate_min_sources: int = param(2, low=1, help="... of this many sources is boilerplate")
+    boilerplate_min_docs: int = param(5, low=2, high=10_000_000, help="a segment in this many documents ...")
+    boilerplate_min_sources: int = param(2, low=1, high=100_000, help="... of this many sources is boilerplate")
 
 
 # -- shingles and signatures ---------------------------------------------------------------
@@ -388,12 +388,26 @@ def load_signatures(runner, stage: str, in_stage: str, parts, params: Params) ->
 
 # -- candidates, clusters ------------------------------------------------------------------
 
-def lsh_params(threshold: float, num_perm: int, fp_weight: float) -> tuple[int, int]:
-    """(bands, rows per band) from datasketch's optimisation of the weighted error."""
-    from datasketch import MinHashLSH
-    weights = (round(fp_weight, 6), round(1.0 - fp_weight, 6))
-    lsh = MinHashLSH(threshold=threshold, num_perm=num_perm, weights=weights)
-    return lsh.b, lsh.r
+CANDIDATE_RECALL = 0.99   # a pair at the threshold becomes a candidate with at least this probability
+
+
+def lsh_params(threshold: float, num_perm: int, fp_weight: float = 0.0) -> tuple[int, int]:
+    """(bands, rows per band), b * r <= num_perm, such that a pair whose Jaccard equals the
+    threshold becomes a candidate with probability 1 - (1 - t^r)^b >= CANDIDATE_RECALL; among
+    those, the most rows per band (the steepest S-curve, so the fewest candidates far below the
+    threshold), then the most bands.  Candidates are verified exactly, so a false candidate costs
+    one comparison, while a missed one cannot be recovered.  (``fp_weight`` is kept for recipes
+    that set it; the choice no longer depends on it.)
+
+    >>> lsh_params(0.8, 128)
+    (21, 6)
+    """
+    best = (num_perm, 1)
+    for rows in range(1, num_perm + 1):
+        bands = num_perm // rows
+        if bands >= 1 and s_curve(threshold, bands, rows) >= CANDIDATE_RECALL:
+            best = (bands, rows)
+    return best
 
 
 def s_curve(s: float, bands: int, rows: int) -> float:

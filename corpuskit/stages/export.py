@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from ..ledger import Counts, conservation
-from ..recipe import param
+from ..config import Checked, param
 from ..sheets import csv_text
 from ..storage import atomic_write_text, file_sha256, stable_hash
 from . import tokenizer as tok
@@ -41,10 +41,10 @@ PACKAGES = ("corpuskit", "fasttext-wheel", "numpy", "sentencepiece", "regex", "d
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     restricted: str = param("separate", choices=("separate", "exclude"),
                             help="documents that may not be redistributed: a separate restricted/ folder, or left out")
-    vocab_size: int = param(8000, low=50, help="requested tokenizer vocabulary size")
+    vocab_size: int = param(8000, low=50, high=1_000_000, help="requested tokenizer vocabulary size")
     model_type: str = param("unigram", choices=("unigram", "bpe"), help="tokenizer model")
     alpha: float = param(0.3, low=0.0, high=1.0, help="temperature-sampling exponent across dialects")
     dialect_floor: float = param(0.1, low=0, high=1, help="warn when a dialect's share of words is below this")
@@ -148,6 +148,12 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     train_by_dialect = {g.split(":", 1)[1]: v for g, v in lines.items() if g.startswith("train:")}
     tok_info = _tokenizer(out, cache, params, recipe, lines.get("train", []), dev or train_by_dialect,
                           "dev" if dev else "train")
+    used = tok_info["summary"].get("vocab_used")
+    if used and used != params.vocab_size:
+        runner.warnings.append(f"tokenizer: vocabulary {used} instead of the requested {params.vocab_size} "
+                               + ("(the text has more distinct characters than that; each needs a piece)"
+                                  if used > params.vocab_size else "(the largest this much text supports)")
+                               + "; set [stages.export] vocab_size to silence this")
 
     ledger_totals, removal_examples, rewrite_by_reason = led.totals, led.removal_examples, led.rewrite_by_reason
     round_trip, variant_rewrites, nfkc_folds = led.round_trip, led.variant_rewrites, led.nfkc_folds

@@ -13,15 +13,16 @@ from typing import Iterator
 from ..ledger import Counts, LedgerRow
 from ..readers import READERS
 from ..readers._decode import TextFile
-from ..recipe import SourceSpec, build
+from ..config import Checked, build
+from ..recipe import SourceSpec
 from ..records import new_document
 from ..storage import digest64
 
-VERSION = "3"
+VERSION = "4"
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     pass
 
 

@@ -25,7 +25,7 @@ import regex
 
 from ..errors import RecipeError
 from ..ledger import LedgerRow, remove_document
-from ..recipe import param
+from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from ..variants_table import restore_cell
 from ._base import keep_segments
@@ -37,18 +37,18 @@ URL = regex.compile(r"https?://\S+|www\.\S+|\S+@\S+\.\w+")
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     seeds: dict = param({}, help="seed files by label, e.g. {qxk = 'seeds/qxk.txt', contact = 'seeds/contact.txt'}")
     model: str = param("", help="a fastText model file to use instead of training")
     target_precision: float = param(0.98, low=0.5, high=1.0, help="precision the threshold is calibrated to reach")
     folds: int = param(5, low=2, high=20, help="cross-validation folds")
-    min_letters: int = param(4, low=0, help="segments with fewer letters are undetermined")
+    min_letters: int = param(4, low=0, high=200, help="segments with fewer letters are undetermined")
     min_share: float = param(0.3, low=0, high=1, help="documents with a smaller target share are dropped")
     target_scripts: list[str] = param([], help="scripts the target language is written in (default: the target script)")
     review_file: str = param("", help="a reviewed sheet (CSV: text,label) merged into the seeds")
-    review_size: int = param(100, low=0, help="uncertain segments written to the review sheet")
-    epoch: int = param(25, low=1, help="training epochs")
-    dim: int = param(16, low=2, help="embedding dimension")
+    review_size: int = param(100, low=0, high=100_000, help="uncertain segments written to the review sheet")
+    epoch: int = param(25, low=1, high=1000, help="training epochs")
+    dim: int = param(16, low=2, high=1024, help="embedding dimension")
 
 
 def _seed_paths(recipe, params) -> dict[str, Path]:

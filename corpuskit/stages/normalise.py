@@ -22,14 +22,14 @@ from dataclasses import dataclass
 import regex
 
 from ..ledger import LedgerRow
-from ..recipe import param
+from ..config import Checked, param
 from ._base import drop_empty
 
 VERSION = "2"
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     form: str = param("NFC", choices=("NFC", "NFKC"), help="Unicode normalisation form")
     repair_mojibake: bool = param(True, help="repair text decoded with the wrong code page (ftfy)")
     quotes: str = param("ascii", choices=("keep", "ascii"), help="curly and angle quotes")
@@ -72,7 +72,6 @@ DASHES = str.maketrans({"\N{HYPHEN}": "-", "\N{NON-BREAKING HYPHEN}": "-", "\N{M
 _HAS_QUOTE = regex.compile("[%s]" % regex.escape("".join(chr(c) for c in QUOTES)))
 _HAS_DASH = regex.compile("[%s]" % regex.escape("".join(chr(c) for c in DASHES)))
 _OTHER_DIGIT = regex.compile(r"[\p{Nd}--[0-9]]", regex.V1)
-_SPACES = regex.compile(r"[\p{Zs}\t]+")
 
 
 def _safe_ftfy_config():
@@ -136,8 +135,31 @@ def digits(text: str) -> str:
     return _OTHER_DIGIT.sub(lambda m: str(unicodedata.digit(m.group(), 0)) if unicodedata.digit(m.group(), None) is not None else m.group(), text)
 
 
+_SPACE_RUN = regex.compile(r"[\p{Zs}\t]+")
+_MARK = regex.compile(r"\p{M}")
+
+
 def whitespace(text: str) -> str:
-    return " ".join(_SPACES.sub(" ", text).split(" ")).strip()
+    """Unicode spaces and tabs become one U+0020, ends trimmed; but a space that carries a
+    combining mark (an isolated diacritic written on a space or no-break space, as the Unicode
+    Standard's section 7.9 describes) is kept as it is.
+
+    >>> whitespace("  a \u00a0\u0301 b  ")
+    'a \xa0\u0301 b'
+    """
+    if not _SPACE_RUN.search(text):
+        return text
+
+    def collapse(m):
+        run, after = m.group(), m.end()
+        if after < len(text) and _MARK.match(text, after):
+            return (" " if len(run) > 1 and m.start() > 0 else "") + run[-1]
+        return " "
+
+    text = _SPACE_RUN.sub(collapse, text).rstrip(" ")
+    while text[:1] == " " and not _MARK.match(text, 1):
+        text = text[1:]
+    return text
 
 
 def normalise_text(text: str, params: Params, apostrophe: str = "keep") -> tuple[str, list[str]]:

@@ -9,12 +9,13 @@ from __future__ import annotations
 
 from collections import Counter
 from dataclasses import dataclass
+from functools import lru_cache
 
 import regex
 
 from ..ledger import LedgerRow, remove_document
 from ..pii import PLACEHOLDER, scrub
-from ..recipe import param
+from ..config import Checked, param
 from ..storage import stable_hash
 from ._base import drop_empty, keep_segments
 
@@ -22,11 +23,11 @@ VERSION = "4"
 
 
 @dataclass(frozen=True)
-class Params:
-    min_chars: int = param(8, low=0, help="shorter segments are removed")
-    max_chars: int = param(5000, low=1, help="longer segments are removed")
+class Params(Checked):
+    min_chars: int = param(8, low=0, high=100_000, help="shorter segments are removed")
+    max_chars: int = param(5000, low=1, high=100_000_000, help="longer segments are removed")
     min_script_share: float = param(0.5, low=0, high=1, help="least share of letters in the target script")
-    max_char_repeat: int = param(6, low=2, help="a character repeated more times in a row is junk")
+    max_char_repeat: int = param(6, low=2, high=200, help="a character repeated more times in a row is junk")
     max_digit_share: float = param(0.3, low=0, high=1, help="most share of digits")
     max_punct_share: float = param(0.3, low=0, high=1, help="most share of punctuation")
     max_symbol_share: float = param(0.2, low=0, high=1, help="most share of symbols")
@@ -41,15 +42,22 @@ URL = regex.compile(r"https?://\S+|www\.\S+")
 EMOJI = regex.compile(r"[\p{Extended_Pictographic}\p{Emoji_Modifier}\N{VARIATION SELECTOR-16}\N{ZERO WIDTH JOINER}]")
 
 
+@lru_cache(maxsize=8)
+def _repeat(n: int):
+    return regex.compile(r"(.)\1{%d,}" % n)
+
+
 def segment_problem(text: str, params: Params, script: str, target: str) -> tuple[str, str] | None:
     """The first filter a segment fails, as (reason, detail), or None."""
     bare = PLACEHOLDER.sub("", text)
     n = len(bare)
+    if not bare.strip():
+        return "no-text", "nothing left but placeholders or spaces"
     if n < params.min_chars:
         return "too-short", f"{n} characters < {params.min_chars}"
     if n > params.max_chars:
         return "too-long", f"{n} characters > {params.max_chars}"
-    m = regex.search(r"(.)\1{%d,}" % params.max_char_repeat, bare)
+    m = _repeat(params.max_char_repeat).search(bare)
     if m:
         return "repeated-characters", f"'{m.group(1)}' repeated {len(m.group())} times"
     url_chars = sum(len(u) for u in URL.findall(bare))

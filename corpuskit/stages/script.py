@@ -19,7 +19,7 @@ from functools import lru_cache
 import regex
 
 from ..ledger import LedgerRow
-from ..recipe import param
+from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from . import transliterate as translit
 
@@ -29,7 +29,7 @@ TOKEN = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{MODIFIER LETTER APOSTROPHE}\p{Nd}]+"
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     repair_confusables: bool = param(True, help="rewrite look-alike letters to the token's dominant script")
     tables: dict = param({}, help="transliteration tables by script code, e.g. {Cyrl = 'tables/cyrl-latn.tsv'}")
 

@@ -13,7 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..recipe import param
+from ..config import Checked, param
 from . import dedup
 
 VERSION = "3"
@@ -21,12 +21,13 @@ SPLITS = ("train", "dev", "test")
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     ratios: dict = param({"train": 0.8, "dev": 0.1, "test": 0.1}, help="share of documents per split")
     leak_threshold: float = param(0.5, low=0.05, high=1.0, help="similarity at which documents must share a split")
     seed: int = param(0, help="seed of the assignment order")
 
     def __post_init__(self):
+        super().__post_init__()
         if set(self.ratios) != set(SPLITS) or any(not isinstance(v, (int, float)) or v < 0 for v in self.ratios.values()):
             raise ValueError("key 'ratios' must give train, dev and test shares, e.g. {train = 0.8, dev = 0.1, test = 0.1}")
         if abs(sum(self.ratios.values()) - 1.0) > 1e-6:

@@ -14,13 +14,14 @@ from collections import defaultdict
 __all__ = ["train_tokenizer", "dialect_report"]
 
 _LIMIT = re.compile(r"value <= (\d+)")
+_TOO_SMALL = re.compile(r"Vocabulary size is smaller than required_chars\. (\d+) vs (\d+)")
 
 
 def train_tokenizer(lines: list[str], vocab_size: int, model_type: str, letters: str) -> tuple[bytes, int]:
     """The model bytes and the vocabulary size actually used."""
     import sentencepiece as spm
 
-    lines = [x for x in lines if x.strip()]
+    lines = [piece for x in lines if x.strip() for piece in _sentence_sized(x)]
     if not lines:
         raise ValueError("no text to train the tokenizer on")
     present = set("".join(lines))
@@ -40,11 +41,33 @@ def train_tokenizer(lines: list[str], vocab_size: int, model_type: str, letters:
         try:
             return attempt(size), size
         except RuntimeError as exc:
+            small = _TOO_SMALL.search(str(exc))
+            if small:   # every character is a piece of its own: the vocabulary must hold them all
+                size = int(small.group(2)) + 1
+                continue
             m = _LIMIT.search(str(exc))
             if not m or int(m.group(1)) >= size:
                 raise
             size = int(m.group(1))  # the largest size this text supports, as sentencepiece reports it
     return attempt(size), size  # pragma: no cover
+
+
+SENTENCE_CHARS = 2000   # longer lines are trained on in pieces of about this size
+
+
+def _sentence_sized(line: str) -> list[str]:
+    """A line as pieces of at most about SENTENCE_CHARS characters, cut at spaces: sentencepiece's
+    training is slow on very long sentences and learns nothing more from them."""
+    if len(line) <= 2 * SENTENCE_CHARS:
+        return [line]
+    pieces, start = [], 0
+    while start < len(line):
+        end = min(len(line), start + SENTENCE_CHARS)
+        cut = line.rfind(" ", start, end) if end < len(line) else end
+        end = cut if cut > start else end
+        pieces.append(line[start:end].strip())
+        start = end
+    return [p for p in pieces if p]
 
 
 def dialect_report(model: bytes, docs_by_dialect: dict[str, list[str]]) -> list[dict]:

@@ -14,7 +14,7 @@ from collections import Counter
 from dataclasses import dataclass
 
 from ..ledger import LedgerRow
-from ..recipe import param
+from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from .. import variants_table as vt
 
@@ -22,7 +22,7 @@ VERSION = "2"
 
 
 @dataclass(frozen=True)
-class Params:
+class Params(Checked):
     table: str = param("", help="variant table (TSV: variant, canonical, scope, note)")
     rules: str = param("", help="ordered rewrite rules (TSV: pattern, replacement, scope, note)")
     protected: str = param("", help="words never rewritten, one per line")
