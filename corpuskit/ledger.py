@@ -25,6 +25,9 @@ LEDGER_SCHEMA = pa.schema([
     ("detail", pa.string()),
     ("dup_of", pa.string()),
     ("text", pa.string()),          # the removed or original text, when safe to keep
+    ("lang", pa.string()),          # the language label language ID gave the unit (a document: its majority)
+    ("lang_score", pa.float32()),   # P(target language) of a segment; a document's mean over its target segments
+    ("target_segments", pa.int32()),  # a removed document: how many of its segments were in the target language
 ])
 
 
@@ -40,6 +43,9 @@ class LedgerRow:
     detail: str = ""
     dup_of: str | None = None
     text: str | None = None
+    lang: str | None = None
+    lang_score: float | None = None
+    target_segments: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -49,14 +55,22 @@ def remove_document(stage: str, doc: dict, reason: str, detail: str = "", dup_of
                     keep_text: bool = False) -> LedgerRow:
     """A removed document; with `keep_text`, its segments (one per line, 2000 characters at most) go along."""
     text = "\n".join(doc["segments"])[:2000] if keep_text else None
-    return LedgerRow(stage, "document", "removed", doc["id"], -1, len(doc["segments"]), reason, detail, dup_of, text)
+    labels = doc.get("seg_lang") or []
+    majority = max(sorted(set(labels)), key=labels.count) if labels else None
+    language = doc.get("lang")
+    target = sum(1 for lab in labels if lab == language) if labels and language else None
+    return LedgerRow(stage, "document", "removed", doc["id"], -1, len(doc["segments"]), reason, detail, dup_of, text,
+                     majority, doc.get("langid_score"), target)
 
 
 def remove_segment(stage: str, doc: dict, position: int, reason: str, detail: str = "",
                    keep_text: bool = True, dup_of: str | None = None) -> LedgerRow:
     text = doc["segments"][position] if keep_text else None
+    labels, scores = doc.get("seg_lang") or [], doc.get("seg_score") or []
     return LedgerRow(stage, "segment", "removed", doc["id"], int(doc["seg_index"][position]), 1,
-                     reason, detail, dup_of, text[:500] if text else text)
+                     reason, detail, dup_of, text[:500] if text else text,
+                     labels[position] if position < len(labels) else None,
+                     scores[position] if position < len(scores) else None)
 
 
 def rewrite(stage: str, doc_id: str, seg_index: int, reason: str, detail: str = "", text: str | None = None) -> LedgerRow:

@@ -68,6 +68,8 @@ class SourceSpec(Checked):
                                           "['cp1251', 'koi8_r'] (default: the common legacy code pages)")
     priority: int = param(0, help="higher wins when duplicates are resolved")
     transliterate: str = param("", help="transliteration table applied to this source")
+    language: str = param("", help="the source's language as a BCP 47 tag, when it is known: language ID trusts "
+                                   "it and does not classify the source's segments")
     attribution: bool = param(False, help="the contributors agreed to be named: keep real speaker, sender and "
                                           "contributor names instead of pseudonyms")
     options: dict = param({}, help="reader options")
@@ -254,6 +256,9 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
             raise RecipeError(f"{path}: {where} key 'format' = '{src.format}' is not a known reader"
                               f"{_suggest(src.format, READERS)}")
         _check_licence(src.licence, f"{where} key 'licence'", path)
+        if src.language and not is_valid_language_tag(src.language):
+            raise RecipeError(f"{path}: {where} key 'language' = '{src.language}' is not a valid BCP 47 tag; use e.g. "
+                              f"'{corpus.language}' for a source known to be in the target language.")
         build(READERS[src.format].Options, src.options, f"{where} options", path)
         for code in src.encodings:
             _check_codec(code, f"{where} key 'encodings'", path)

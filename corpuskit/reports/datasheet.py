@@ -137,11 +137,14 @@ def render(recipe, facts: dict) -> tuple[str, list[str]]:
             lid = facts["extra"].get("langid_summary")
             if lid:
                 th = lid.get("threshold") or {}
-                out.append(f"Language identification: fastText from seed text; {lid.get('folds', 5)}-fold cross-validated "
+                out.append(f"Language identification: fastText from seed text; {lid.get('folds')}-fold cross-validated "
                            f"accuracy {_fmt(lid.get('accuracy'))}, macro-F1 {_fmt(lid.get('macro_f1'))} over all seed labels "
                            f"(dialect labels included); target-language threshold {_fmt(th.get('value'))} "
                            f"(precision {_fmt(th.get('precision'))}, recall {_fmt(th.get('recall'))} on held-out seed folds). "
                            "See `reports/langid-classes.csv` and `reports/langid-confusion.csv`.\n")
+                if lid.get("target_segments_lost"):
+                    out.append(f"Whole documents below the recipe's target share were removed, taking "
+                               f"{lid['target_segments_lost']} target-language segments with them.\n")
             dd = facts["extra"].get("dedup_params")
             if dd:
                 out.append(f"Near-duplicates: MinHash ({dd['num_perm']} permutations, {dd['shingle']}), LSH with "

@@ -268,6 +268,7 @@ class LedgerSummary:
     round_trip: Counter = field(default_factory=Counter)
     variant_rewrites: Counter = field(default_factory=Counter)
     nfkc_folds: Counter = field(default_factory=Counter)
+    target_segments_lost: int = 0     # target-language segments of documents language ID removed whole
 
     def merge(self, stage: str, piece: dict) -> None:
         tot = self.totals.setdefault(stage, {"documents": 0, "segments_of_documents": 0, "segments": 0})
@@ -282,6 +283,8 @@ class LedgerSummary:
         self.round_trip.update(piece["round_trip"])
         self.variant_rewrites.update({(rule, dialect): n for rule, dialect, n in piece["variant_rewrites"]})
         self.nfkc_folds.update(piece["nfkc_folds"])
+        if stage == "langid":
+            self.target_segments_lost += piece.get("target_segments_lost", 0)
 
 
 def summarise_ledger_rows(rows: list[dict], settings: LedgerSettings) -> dict:
@@ -322,7 +325,9 @@ def summarise_ledger_rows(rows: list[dict], settings: LedgerSettings) -> dict:
     return {"rows": len(rows), "totals": _totals(rows), "by_source": {k: dict(v) for k, v in by_source.items()},
             "examples": dict(examples), "rewrites": dict(rewrites), "round_trip": dict(round_trip),
             "variant_rewrites": [[rule, dialect, n] for (rule, dialect), n in sorted(variant_rewrites.items())],
-            "nfkc_folds": dict(folds)}
+            "nfkc_folds": dict(folds),
+            "target_segments_lost": sum(r.get("target_segments") or 0 for r in rows
+                                        if r["stage"] == "langid" and r["unit"] == "document")}
 
 
 def ledger_piece_task(cache_root: str, stage: str, key: str, settings: LedgerSettings, name: str) -> str:

@@ -172,7 +172,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "removals.csv", csv_text(removal_rows, ["stage", "reason", "removed", "examples"]))
     atomic_write_text(rep / "rewrites.csv", csv_text([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
-    extra = _stage_reports(runner, rep, out / "private", review)
+    extra = _stage_reports(runner, rep, out / "private", review, led)
     atomic_write_text(rep / "variants.csv", csv_text(variants_report(stats.types["dialect"], variant_rewrites),
                                                  ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
@@ -472,7 +472,7 @@ def _tokenizer(out: Path, cache, params: Params, recipe, train_lines: list[str],
     return {"summary": summary, "dialects": rows}
 
 
-def _stage_reports(runner, rep: Path, private: Path, review) -> dict:
+def _stage_reports(runner, rep: Path, private: Path, review, ledger_summary) -> dict:
     cache, recipe = runner.cache, runner.recipe
     extra: dict = {}
     if cache.has_blob("dedup", "report.json"):
@@ -496,7 +496,10 @@ def _stage_reports(runner, rep: Path, private: Path, review) -> dict:
                               csv_text([{"label": k, **v} for k, v in sorted(r["per_class"].items())],
                                    ["label", "precision", "recall", "f1", "support"]))
         extra["langid_summary"] = {"accuracy": r.get("accuracy"), "macro_f1": r.get("macro_f1"),
-                                   "threshold": r.get("threshold"), "examples": r.get("examples")}
+                                   "threshold": r.get("threshold"), "examples": r.get("examples"),
+                                   "folds": r.get("folds"), "hyperparameters": r.get("hyperparameters"),
+                                   "target_precision": r.get("target_precision"),
+                                   "target_segments_lost": ledger_summary.target_segments_lost}
         from .langid import review_rows
         rows = review_rows(review.best(), r["threshold"]["value"], recipe.stages["langid"].review_size)
         atomic_write_text(private / "langid-review.csv",

@@ -5,12 +5,21 @@ thread and a fixed seed, so training is deterministic) learns the target
 language (optionally per dialect), each contact language and an ``other``
 class.  k-fold cross-validation gives an honest error estimate; the decision
 threshold on the target-language probability is calibrated on the held-out
-folds to reach the recipe's precision.  Segments without enough letters are
-undetermined and follow their neighbours.
+folds to reach the recipe's precision, and the final model is trained exactly
+as the fold models were (the same shuffled order, the same hyperparameters),
+so the threshold carries over.  A target the seeds cannot reach stops the run.
+
+Every segment passes the script gate, however short.  A short segment (few
+letters) is decided with its document's context: its score is mixed with the
+mean score of the document's other segments, in proportion to how little text
+it has.  Segments without enough letters to judge follow their neighbours.
+Target-language segments of mixed documents are kept; dropping whole documents
+below a target share is an opt-in (``min_share``).
 """
 from __future__ import annotations
 
 import csv
+import dataclasses
 import os
 import random
 import tempfile
@@ -30,7 +39,7 @@ from ..storage import file_sha256, stable_hash
 from ..variants_table import restore_cell
 from ._base import keep_segments
 
-VERSION = "2"
+VERSION = "3"
 UND = "und"
 LETTER = regex.compile(r"\p{L}")
 URL = regex.compile(r"https?://\S+|www\.\S+|\S+@\S+\.\w+")
@@ -43,12 +52,24 @@ class Params(Checked):
     target_precision: float = param(0.98, low=0.5, high=1.0, help="precision the threshold is calibrated to reach")
     folds: int = param(5, low=2, high=20, help="cross-validation folds")
     min_letters: int = param(4, low=0, high=200, help="segments with fewer letters are undetermined")
-    min_share: float = param(0.3, low=0, high=1, help="documents with a smaller target share are dropped")
+    min_share: float = param(0.0, low=0, high=1, help="drop whole documents whose target share is smaller (0: keep "
+                                                    "every target-language segment of mixed documents)")
+    context: bool = param(True, help="decide short segments with their document's other segments")
+    context_letters: int = param(25, low=1, high=1000, help="segments with fewer letters lean on their document's context")
     target_scripts: list[str] = param([], help="scripts the target language is written in (default: the target script)")
     review_file: str = param("", help="a reviewed sheet (CSV: text,label) merged into the seeds")
     review_size: int = param(100, low=0, high=100_000, help="uncertain segments written to the review sheet")
     epoch: int = param(25, low=1, high=1000, help="training epochs")
     dim: int = param(16, low=2, high=1024, help="embedding dimension")
+    minn: int = param(2, low=1, high=10, help="shortest character n-gram")
+    maxn: int = param(5, low=1, high=10, help="longest character n-gram")
+    word_ngrams: int = param(1, low=1, high=5, help="word n-grams")
+    tune: bool = param(False, help="choose dim, epoch, character n-gram range and word n-grams by cross-validation")
+
+    def __post_init__(self):
+        super().__post_init__()
+        if self.minn > self.maxn:
+            raise ValueError(f"key 'minn' = {self.minn} is larger than 'maxn' = {self.maxn}; use minn <= maxn")
 
 
 def _seed_paths(recipe, params) -> dict[str, Path]:
@@ -59,7 +80,8 @@ def context_key(recipe, params) -> str:
     files = {k: file_sha256(p) for k, p in _seed_paths(recipe, params).items() if p.exists()}
     extra = [file_sha256(recipe.resolve(x, "[stages.langid]")) for x in (params.model, params.review_file)
              if x and recipe.resolve(x, "[stages.langid]").exists()]
-    return stable_hash(VERSION, recipe.corpus.language, recipe.corpus.target_script, files, extra)
+    return stable_hash(VERSION, recipe.corpus.language, recipe.corpus.target_script, files, extra,
+                       {s.id: s.language for s in recipe.sources if s.language})
 
 
 def is_target(label: str, language: str) -> bool:
@@ -91,18 +113,37 @@ def read_seeds(recipe, params) -> list[tuple[str, str]]:
     return examples
 
 
-def train(examples: list[tuple[str, str]], params: Params, path: Path) -> None:
+SHUFFLE_SEED = 20261201
+
+
+def shuffled(examples: list[tuple[str, str]]) -> list[tuple[str, str]]:
+    """The examples in one fixed random order.  fastText learns by stochastic gradient descent in
+    file order, so a model trained on label-sorted lines differs from one trained on shuffled lines
+    (the last label's lines pull hardest); every model here, fold or final, sees shuffled lines."""
+    order = list(range(len(examples)))
+    random.Random(SHUFFLE_SEED).shuffle(order)
+    return [examples[i] for i in order]
+
+
+def hyperparameters(params: Params) -> dict:
+    return {"dim": params.dim, "epoch": params.epoch, "minn": params.minn, "maxn": params.maxn,
+            "word_ngrams": params.word_ngrams}
+
+
+def train(examples: list[tuple[str, str]], params: Params, path: Path, hyper: dict | None = None) -> None:
+    """Train on the examples in the fixed shuffled order, single-threaded with a fixed seed."""
     import fasttext
 
+    hyper = hyper or hyperparameters(params)
     fasttext.FastText.eprint = lambda *a, **k: None
     with tempfile.NamedTemporaryFile("w", suffix=".txt", delete=False, encoding="utf-8") as f:
-        for label, text in examples:
+        for label, text in shuffled(examples):
             f.write(f"__label__{label} {text}\n")
         name = f.name
     try:
-        model = fasttext.train_supervised(input=name, minn=2, maxn=5, dim=params.dim, bucket=100_000,
-                                          epoch=params.epoch, lr=0.5, wordNgrams=1, loss="softmax",
-                                          thread=1, seed=1234, verbose=0, minCount=1)
+        model = fasttext.train_supervised(input=name, minn=hyper["minn"], maxn=hyper["maxn"], dim=hyper["dim"],
+                                          bucket=100_000, epoch=hyper["epoch"], lr=0.5, wordNgrams=hyper["word_ngrams"],
+                                          loss="softmax", thread=1, seed=1234, verbose=0, minCount=1)
         model.save_model(str(path))
     finally:
         os.unlink(name)
@@ -111,7 +152,10 @@ def train(examples: list[tuple[str, str]], params: Params, path: Path) -> None:
 _MODELS: dict[str, Any] = {}
 
 
-def load_model(path: str):
+def load_model(path):
+    """A fastText model by path, or a list of them (the fold models), loaded once per process."""
+    if isinstance(path, (list, tuple)):
+        return [load_model(p) for p in path]
     if path not in _MODELS:
         import fasttext
         fasttext.FastText.eprint = lambda *a, **k: None
@@ -148,7 +192,12 @@ def _label_count(model) -> int:
 
 
 def target_scores(model, lines: list[str], language: str) -> tuple[np.ndarray, list[str]]:
-    """P(target language) per line and the most probable label."""
+    """P(target language) per line and the most probable label; for a list of models (the fold
+    models), the mean probability and the label with the highest mean."""
+    if isinstance(model, (list, tuple)):
+        if len(model) == 1:
+            return target_scores(model[0], lines, language)
+        return _ensemble_scores(model, lines, language)
     n, targets = _labels(model, language)
     fasttext_predict = model.f.predict
     out, best = [], []
@@ -159,8 +208,25 @@ def target_scores(model, lines: list[str], language: str) -> tuple[np.ndarray, l
     return np.minimum(np.array(out, dtype=float), 1.0), best
 
 
-def cross_validate(examples: list[tuple[str, str]], params: Params, language: str, workdir: Path) -> dict:
-    """k-fold cross-validation: accuracy, per-class P/R/F1, confusion, out-of-fold target scores."""
+def _ensemble_scores(models: list, lines: list[str], language: str) -> tuple[np.ndarray, list[str]]:
+    total = np.zeros(len(lines))
+    votes: list[Counter] = [Counter() for _ in lines]
+    for m in models:
+        n = _label_count(m)
+        predict = m.f.predict
+        for i, x in enumerate(lines):
+            for p, lab in predict(" ".join(x.casefold().split()) + "\n", n, 0.0, "strict"):
+                votes[i][lab[9:]] += p
+    for i, v in enumerate(votes):
+        total[i] = sum(p for lab, p in v.items() if is_target(lab, language))
+    best = [max(sorted(v), key=v.get) if v else UND for v in votes]
+    return np.minimum(total / len(models), 1.0), best
+
+
+def cross_validate(examples: list[tuple[str, str]], params: Params, language: str, workdir: Path,
+                   hyper: dict | None = None, keep: list[Path] | None = None) -> dict:
+    """k-fold cross-validation: accuracy, per-class P/R/F1, confusion, out-of-fold target scores.
+    With ``keep`` (one path per fold), the fold models are kept there: they are the classifier."""
     rng = random.Random(20261201)
     order = list(range(len(examples)))
     rng.shuffle(order)
@@ -168,9 +234,9 @@ def cross_validate(examples: list[tuple[str, str]], params: Params, language: st
     gold, pred, scores, is_tgt = [], [], [], []
     for k, test in enumerate(folds):
         test_set = set(test)
-        train_ex = [examples[i] for i in order if i not in test_set]
-        path = workdir / f"fold{k}.bin"
-        train(train_ex, params, path)
+        train_ex = [examples[i] for i in range(len(examples)) if i not in test_set]   # seed order, shuffled by train()
+        path = keep[k] if keep else workdir / f"fold{k}.bin"
+        train(train_ex, params, path, hyper)
         model = load_model(str(path))
         s, best = target_scores(model, [examples[i][1] for i in test], language)
         for i, sc, b in zip(test, s, best):
@@ -179,12 +245,32 @@ def cross_validate(examples: list[tuple[str, str]], params: Params, language: st
             scores.append(float(sc))
             is_tgt.append(is_target(examples[i][0], language))
         _MODELS.pop(str(path), None)
-        path.unlink()
+        if not keep:
+            path.unlink()
     report = classification_report(gold, pred)
     report["threshold"] = calibrate(np.array(scores), np.array(is_tgt), params.target_precision)
     report["examples"] = len(examples)
     report["folds"] = params.folds
+    report["hyperparameters"] = hyper or hyperparameters(params)
+    report["target_share"] = float(np.mean(is_tgt)) if is_tgt else 0.0
     return report
+
+
+TUNING_GRID = {"dim": (16, 32), "epoch": (25, 50), "char_ngrams": ((2, 5), (1, 4), (3, 6)), "word_ngrams": (1, 2)}
+
+
+def tune(examples: list[tuple[str, str]], params: Params, language: str, workdir: Path) -> tuple[dict, list[dict]]:
+    """The hyperparameters whose cross-validated recall at the calibrated threshold is highest
+    (then macro-F1), over TUNING_GRID; and every candidate's figures."""
+    import itertools
+    tried = []
+    for dim, epoch, (minn, maxn), word_ngrams in itertools.product(*TUNING_GRID.values()):
+        hyper = {"dim": dim, "epoch": epoch, "minn": minn, "maxn": maxn, "word_ngrams": word_ngrams}
+        r = cross_validate(examples, params, language, workdir, hyper)
+        th = r["threshold"]
+        tried.append({**hyper, "reached": th["reached"], "recall": th["recall"] or 0.0, "macro_f1": r["macro_f1"]})
+    best = max(tried, key=lambda t: (t["reached"], t["recall"], t["macro_f1"]))
+    return {k: best[k] for k in ("dim", "epoch", "minn", "maxn", "word_ngrams")}, tried
 
 
 def classification_report(gold: list[str], pred: list[str]) -> dict:
@@ -207,28 +293,64 @@ def classification_report(gold: list[str], pred: list[str]) -> dict:
             "macro_f1": float(np.mean([v["f1"] for v in per.values()])) if per else 0.0}
 
 
+CALIBRATION_Z = 1.0   # precision is judged by its Wilson lower bound at this many standard errors
+
+
+def wilson_lower(successes: float, n: float, z: float = CALIBRATION_Z) -> float:
+    """Lower end of the Wilson score interval for a proportion (Wilson 1927).
+
+    >>> round(wilson_lower(90, 100, 1.96), 4)
+    0.8256
+    """
+    if n <= 0:
+        return 0.0
+    p = successes / n
+    centre = p + z * z / (2 * n)
+    margin = z * np.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
+    return float((centre - margin) / (1 + z * z / n))
+
+
 def calibrate(scores: np.ndarray, truth: np.ndarray, target_precision: float) -> dict:
-    """The lowest threshold on P(target) whose precision reaches the target, and the recall it keeps."""
+    """The lowest threshold on P(target) at which the precision of the held-out predictions reaches
+    the target, judged by its Wilson lower bound (the first threshold whose raw precision crosses the
+    target is an optimistic pick among many: it did not hold on new text), and the recall it keeps.
+    Thresholds are the held-out scores themselves, so values above 0.99 can be chosen too."""
     best = {"value": 0.5, "precision": None, "recall": None, "reached": False}
-    for t in np.round(np.arange(0.05, 1.0, 0.01), 2):
-        sel = scores >= t
-        if not sel.any():
-            break
-        prec = float(truth[sel].mean())
-        rec = float(sel[truth].mean()) if truth.any() else 0.0
-        if prec >= target_precision:
-            return {"value": float(t), "precision": prec, "recall": rec, "reached": True}
-        best = {"value": float(t), "precision": prec, "recall": rec, "reached": False}
+    scores, truth = np.asarray(scores, dtype=float), np.asarray(truth, dtype=bool)
+    positives = int(truth.sum())
+    order = np.argsort(-scores, kind="stable")
+    s_sorted, t_sorted = scores[order], truth[order]
+    tp, selected = np.cumsum(t_sorted), np.arange(1, len(order) + 1)
+    last_of_value = np.flatnonzero(np.append(s_sorted[1:] != s_sorted[:-1], True))   # ties select together
+    for k in last_of_value[::-1]:          # from the lowest threshold up
+        t = float(s_sorted[k])
+        if t < 0.05:
+            continue
+        prec = float(tp[k] / selected[k])
+        rec = float(tp[k] / positives) if positives else 0.0
+        if wilson_lower(tp[k], selected[k]) >= target_precision:
+            # Any threshold down to the next lower held-out score selects the same lines: take the
+            # middle of that gap (a margin on both sides), not its top.
+            below = s_sorted[k + 1:]
+            below = below[below < t]
+            value = (t + max(float(below[0]), 0.05)) / 2 if len(below) else t
+            return {"value": round(value, 6), "precision": prec, "recall": rec, "reached": True,
+                    "precision_lower_bound": round(wilson_lower(tp[k], selected[k]), 4)}
+        best = {"value": t, "precision": prec, "recall": rec, "reached": False,
+                "precision_lower_bound": round(wilson_lower(tp[k], selected[k]), 4)}
     return best
 
 
 def build_context(recipe, params, cache, key):
     stage_dir = cache.blob_path("langid", "")
     stage_dir.mkdir(parents=True, exist_ok=True)
-    model_path = cache.blob_path("langid", f"model-{key}.bin")
+    # The classifier is the k fold models, averaged: the threshold was calibrated on their held-out
+    # scores, so it means the same on new text.  (A final model trained on all seeds was measured
+    # more confident than the fold models on real text, and let more wrong lines past the threshold.)
+    fold_paths = [cache.blob_path("langid", f"model-{key}-fold{k}.bin") for k in range(params.folds)]
     report_name = f"report-{key}.json"
     if params.model:
-        model_path = recipe.resolve(params.model, "[stages.langid] model")
+        fold_paths = [recipe.resolve(params.model, "[stages.langid] model")]
     if not cache.has_blob("langid", report_name):
         if not params.seeds and not params.model:
             raise RecipeError(f"{recipe.path}: [stages.langid] needs seeds (files of hand-checked lines per label) or a model; "
@@ -242,18 +364,44 @@ def build_context(recipe, params, cache, key):
                                   f"'{recipe.corpus.language}'; name one seed set '{recipe.corpus.language}' or "
                                   f"'{recipe.corpus.language}-<dialect>'.")
             with tempfile.TemporaryDirectory(dir=stage_dir) as tmp:
-                report.update(cross_validate(examples, params, recipe.corpus.language, Path(tmp)))
+                hyper, tried = tune(examples, params, recipe.corpus.language, Path(tmp)) if params.tune else (None, [])
+                report.update(cross_validate(examples, params, recipe.corpus.language, Path(tmp), hyper,
+                                             keep=None if params.model else fold_paths))
+            if tried:
+                report["tuning"] = tried
             report["seed_counts"] = dict(sorted(labels.items()))
-            if not params.model:
-                train(examples, params, model_path)
+            report["target_precision"] = params.target_precision
         else:
             report["threshold"] = {"value": 0.5, "precision": None, "recall": None, "reached": False}
         cache.put_json("langid", report_name, report)
     report = cache.get_json("langid", report_name)
+    _require_target(recipe, params, report)
     scripts = list(params.target_scripts) or [recipe.corpus.target_script]
     scripts += [k for k in recipe.stages["script"].tables]
-    return {"model": str(model_path), "threshold": report["threshold"]["value"], "language": recipe.corpus.language,
-            "scripts": sorted(set(scripts)), "report": report_name}
+    return {"model": [str(p) for p in fold_paths], "threshold": report["threshold"]["value"],
+            "language": recipe.corpus.language,
+            "scripts": sorted(set(scripts)), "report": report_name,
+            "declared": {s.id: s.language for s in recipe.sources if s.language}}
+
+
+def _require_target(recipe, params: Params, report: dict) -> None:
+    """Stop (exit 2) when the threshold cannot reach the recipe's precision on the held-out folds."""
+    th = report.get("threshold") or {}
+    if params.seeds and not params.model and not th.get("reached"):
+        confusions = []
+        conf = report.get("confusion", {})
+        for gold, row in conf.items():
+            for pred, n in row.items():
+                if gold != pred and n and (is_target(gold, recipe.corpus.language) != is_target(pred, recipe.corpus.language)):
+                    confusions.append((n, gold, pred))
+        worst = ", ".join(f"{g} read as {p} {n} times" for n, g, p in sorted(confusions, reverse=True)[:3])
+        raise RecipeError(
+            f"{recipe.path}: [stages.langid] cannot reach target_precision = {params.target_precision} for "
+            f"'{recipe.corpus.language}': on held-out seed folds the best is precision {th.get('precision') or 0:.3f} "
+            f"(recall {th.get('recall') or 0:.3f}) at threshold {th.get('value')}"
+            + (f"; most confused: {worst}" if worst else "")
+            + ". Add seed lines (hundreds per label), merge labels that cannot be told apart, or lower "
+              "target_precision in the recipe.")
 
 
 @lru_cache(maxsize=32)
@@ -274,11 +422,11 @@ def _undecided(texts: list[str], scripts: list[str] | None, ctx: dict, params: P
     scores: list[float] = [float("nan")] * len(texts)
     ask = []
     for i, t in enumerate(texts):
-        if undetermined(t, params.min_letters):
-            continue
         sc = scripts[i] if scripts else None
-        if sc and sc not in ctx["scripts"] and sc not in ("Zyyy", "Zinh", "Zzzz"):
+        if sc and sc not in ctx["scripts"] and sc not in ("Zyyy", "Zinh", "Zzzz"):   # the gate, however short
             labels[i], scores[i] = f"script:{sc}", 0.0
+            continue
+        if undetermined(t, params.min_letters):
             continue
         ask.append(i)
     return labels, scores, ask
@@ -309,13 +457,84 @@ def label_documents(docs: list[dict], ctx: dict, params: Params, model) -> list[
     s, best = target_scores(model, lines, ctx["language"])
     k, language, threshold = 0, ctx["language"], ctx["threshold"]
     out = []
-    for labels, scores, ask in plans:
-        for i in ask:
-            scores[i] = float(s[k])
-            labels[i] = language if s[k] >= threshold else (best[k] if not is_target(best[k], language) else "other")
+    decided_all = []
+    for doc, (labels, scores, ask) in zip(docs, plans):
+        own = s[k:k + len(ask)]
+        letters = [letter_count(doc["segments"][i]) for i in ask]
+        decided_all.append(with_context(own, letters, params.context_letters) if params.context else own)
+        k += len(ask)
+    switched = _code_switched(docs, plans, decided_all, model, ctx, params)
+    k = 0
+    for d, (doc, (labels, scores, ask)) in enumerate(zip(docs, plans)):
+        decided = decided_all[d]
+        for j, i in enumerate(ask):
+            score = max(float(decided[j]), switched.get((d, i), 0.0))
+            scores[i] = score
+            labels[i] = language if score >= threshold else (best[k] if not is_target(best[k], language) else "other")
             k += 1
         out.append((_follow_neighbours(labels), scores))
     return out
+
+
+def _code_switched(docs, plans, decided, model, ctx: dict, params: Params) -> dict[tuple[int, int], float]:
+    """Segments that switch language part-way: a long segment below the threshold is scored again
+    as its two halves (by words); the better half's score, where it reaches the threshold, stands
+    for the segment, which holds that much target-language text."""
+    halves, where = [], []
+    for d, (doc, (_, _, ask)) in enumerate(zip(docs, plans)):
+        for j, i in enumerate(ask):
+            text = doc["segments"][i]
+            if decided[d][j] < ctx["threshold"] and letter_count(text) >= params.context_letters:
+                words = text.split()
+                if len(words) >= 4:
+                    halves += [" ".join(words[:len(words) // 2]), " ".join(words[len(words) // 2:])]
+                    where.append((d, i))
+    if not halves:
+        return {}
+    scores, _ = target_scores(model, halves, ctx["language"])
+    out = {}
+    for n, key in enumerate(where):
+        best = float(max(scores[2 * n], scores[2 * n + 1]))
+        if best >= ctx["threshold"]:
+            out[key] = best
+    return out
+
+
+def letter_count(text: str) -> int:
+    return len(LETTER.findall(text))
+
+
+MAX_EVIDENCE = 8.0   # log-odds a document's other segments can add to one segment, at most
+
+
+def _logit(p: np.ndarray) -> np.ndarray:
+    p = np.clip(p, 1e-4, 1 - 1e-4)
+    return np.log(p / (1 - p))
+
+
+def with_context(scores: np.ndarray, letters: list[int], full: int) -> np.ndarray:
+    """Scores of short segments with their document's evidence added.
+
+    Each classified segment's evidence is its log-odds for the target language (positive above
+    P = 0.5, negative below).  A segment with fewer than ``full`` letters gets the summed evidence
+    of the document's other segments (capped at MAX_EVIDENCE) added to its own log-odds, in
+    proportion to how short it is: a one-word line inside a target-language document leans to the
+    target, one inside a contact-language document away from it.  Longer segments, and documents
+    of one segment, keep their own scores.  Measured on real short text (benchmarks/langid_real.py,
+    CLDR names in 30 locales, documents of 8 lines): recall at the calibrated threshold 0.29 ->
+    0.35 (Russian), 0.11 -> 0.45 (Persian), 0.28 -> 0.53 (Ukrainian), precision 1.0 in each;
+    evidence measured against the seeds' prior instead cost 0.1-0.2 of precision.
+
+    >>> with_context(np.array([0.3, 0.95, 0.95]), [5, 40, 40], 25).round(3).tolist()
+    [0.979, 0.95, 0.95]
+    """
+    if len(scores) < 2:
+        return scores
+    evidence = _logit(scores)
+    others = np.clip(evidence.sum() - evidence, 0.0, MAX_EVIDENCE)
+    short = 1.0 - np.minimum(np.asarray(letters, dtype=float), float(full)) / float(full)
+    mixed = evidence + short * others
+    return np.where(short > 0, 1.0 / (1.0 + np.exp(-mixed)), scores)
 
 
 def label_segments(texts: list[str], scripts: list[str] | None, ctx: dict, params: Params, model) -> tuple[list[str], list[float]]:
@@ -323,12 +542,24 @@ def label_segments(texts: list[str], scripts: list[str] | None, ctx: dict, param
     return label_documents([{"segments": texts, "seg_script": scripts}], ctx, params, model)[0]
 
 
+def _trusted(doc: dict, ctx: dict) -> tuple[list[str], list[float]] | None:
+    """Labels for a document of a source whose language the recipe declares (no classification)."""
+    declared = ctx.get("declared", {}).get(doc["source"])
+    if not declared:
+        return None
+    label = ctx["language"] if is_target(declared, ctx["language"]) else declared
+    return [label] * len(doc["segments"]), [float("nan")] * len(doc["segments"])
+
+
 def apply(docs: list[dict], params: Params, ctx: dict):
     rows: list[LedgerRow] = []
     model = load_model(ctx["model"])
     out = []
     language = ctx["language"]
-    for doc, (labels, scores) in zip(docs, label_documents(docs, ctx, params, model)):
+    asked = [d for d in docs if _trusted(d, ctx) is None]
+    decided = iter(label_documents(asked, ctx, params, model))
+    for doc in docs:
+        labels, scores = _trusted(doc, ctx) or next(decided)
         target = [lab == language or lab == UND for lab in labels]
         determined = [lab for lab in labels if lab != UND]
         share = sum(1 for lab in determined if lab == language) / len(determined) if determined else 1.0
@@ -336,11 +567,12 @@ def apply(docs: list[dict], params: Params, ctx: dict):
         doc["seg_score"] = [None if s != s else round(s, 4) for s in scores]
         valid = [s for s, lab in zip(scores, labels) if s == s and lab == language]
         doc["langid_score"] = round(sum(valid) / len(valid), 4) if valid else None
-        if share < params.min_share:
-            rows.append(remove_document("langid", doc, "not-target-language",
-                                        f"target-language share {share:.2f} < {params.min_share}; labels "
-                                        + ", ".join(f"{k}={v}" for k, v in sorted(Counter(labels).items())),
-                                        keep_text=True))
+        if share < params.min_share or (determined and share == 0.0):
+            row = remove_document("langid", doc, "not-target-language",
+                                  f"target-language share {share:.2f}" + (f" < {params.min_share}" if share else "")
+                                  + "; labels " + ", ".join(f"{k}={v}" for k, v in sorted(Counter(labels).items())),
+                                  keep_text=True)
+            rows.append(dataclasses.replace(row, target_segments=sum(1 for lab in labels if lab == language)))
             continue
         if not all(target):
             reasons = [None if t else f"lang:{lab}" for t, lab in zip(target, labels)]
