@@ -158,16 +158,35 @@ def test_demo_splits_do_not_share_near_duplicates(demo_run):
     assert set(splits) == {"train", "dev", "test"} and not crossing
 
 
-def test_sorting_and_datasketch_index_give_the_same_candidates(monkeypatch):
+def _datasketch_candidates(sigs, bands, rows):
+    """Reference: the pairs sharing a bucket in datasketch's own MinHashLSH index, built from the
+    same hash values (LeanMinHash, scheme affine32) with the same bands and rows."""
+    from datasketch import LeanMinHash, MinHashLSH
+    from corpuskit.stages import dedup
+    lsh = MinHashLSH(num_perm=sigs.shape[1], params=(bands, rows))
+    with lsh.insertion_session() as session:
+        for i, sig in enumerate(sigs):
+            session.insert(i, LeanMinHash(seed=dedup.SCHEME_SEED, hashvalues=sig, scheme="affine32"), check_duplication=False)
+    pairs = set()
+    for table in lsh.hashtables:
+        for key in table.keys():
+            members = sorted(table.get(key))
+            if len(members) > dedup.FULL_BUCKET:   # large buckets link each member to the first only
+                pairs.update((members[0], m) for m in members[1:])
+            else:
+                pairs.update((a, b) for x, a in enumerate(members) for b in members[x + 1:])
+    return np.array(sorted(pairs), dtype=np.int64).reshape(-1, 2)
+
+
+def test_sorted_band_keys_give_the_candidates_of_datasketchs_index():
     from corpuskit.stages import dedup
     rng = np.random.default_rng(3)
     base = rng.integers(0, 2**32, (300, 128), dtype=np.uint64).astype(np.uint32)
     noisy = base[:120] ^ ((rng.random((120, 128)) < 0.3) * np.uint32(7)).astype(np.uint32)
     sigs = np.concatenate([base, noisy, np.repeat(base[:1], 80, axis=0)])   # and one bucket of 81 copies
     eligible = np.ones(len(sigs), bool)
-    bands, rows = dedup.lsh_params(0.5, 128, 0.3)
-    with_index = dedup.candidate_pairs(sigs, eligible, bands, rows)
-    monkeypatch.setattr(dedup, "DATASKETCH_INDEX_LIMIT", 10)
+    bands, rows = dedup.lsh_params(0.5, 128)
+    with_index = _datasketch_candidates(sigs, bands, rows)
     by_sorting = dedup.candidate_pairs(sigs, eligible, bands, rows)
     assert np.array_equal(with_index, by_sorting) and len(with_index) > 100
     # The cluster engine's path: band keys shuffled so that equal keys meet in one partition.

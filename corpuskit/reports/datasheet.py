@@ -147,9 +147,13 @@ def render(recipe, facts: dict) -> tuple[str, list[str]]:
                                f"{lid['target_segments_lost']} target-language segments with them.\n")
             dd = facts["extra"].get("dedup_params")
             if dd:
-                out.append(f"Near-duplicates: MinHash ({dd['num_perm']} permutations, {dd['shingle']}), LSH with "
-                           f"{dd['bands']} bands × {dd['rows']} rows at Jaccard {dd['threshold']}; "
-                           f"{dd['exact_duplicates']} exact and {dd['near_duplicates']} near duplicates removed.\n")
+                out.append(f"Near-duplicates: MinHash ({dd['num_perm']} permutations, {dd['shingle']}, text case-folded "
+                           f"and white space collapsed), LSH with {dd['bands']} bands × {dd['rows']} rows (a pair at "
+                           f"Jaccard {dd['threshold']} becomes a candidate with probability "
+                           f"{dd.get('candidate_probability_at_threshold', 0):.3f}); every candidate verified by exact "
+                           f"Jaccard; a document is removed only when a kept document reaches the threshold with it. "
+                           f"{dd['exact_duplicates']} exact and {dd['near_duplicates']} near duplicates removed "
+                           "(`reports/near-duplicate-pairs.csv` lists every verified pair).\n")
         if sec == "distribution":
             out.append(f"Public files: `corpus/`, `splits/`, `tokenizer/`. Documents whose consent or licence forbids "
                        f"redistribution ({facts['restricted_docs']}) are "

@@ -478,8 +478,11 @@ def _stage_reports(runner, rep: Path, private: Path, review, ledger_summary) -> 
     if cache.has_blob("dedup", "report.json"):
         d = cache.get_json("dedup", "report.json")
         atomic_write_text(rep / "duplicate-clusters.csv",
-                          csv_text(d["clusters"], ["cluster", "doc_id", "source", "kept", "kept_id", "max_similarity"]))
-        d = {k: v for k, v in d.items() if k != "clusters"}
+                          csv_text(d["clusters"], ["cluster", "doc_id", "source", "kept", "kept_id", "reason",
+                                                   "jaccard_with_kept"]))
+        atomic_write_text(rep / "near-duplicate-pairs.csv",
+                          csv_text(d.get("pairs", []), ["doc_a", "doc_b", "jaccard", "a_kept", "b_kept"]))
+        d = {k: v for k, v in d.items() if k not in ("clusters", "pairs")}
         atomic_write_text(rep / "dedup.json", json.dumps(d, indent=2, sort_keys=True) + "\n")
         extra["dedup_params"] = d
     if cache.has_blob("split", "report.json"):
