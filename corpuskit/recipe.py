@@ -45,6 +45,9 @@ class CorpusSpec(Checked):
     pseudonym_secret: str = param("private/pseudonym-secret.txt",
                                   help="file (relative to the recipe) holding the secret that makes people's pseudonyms; "
                                        "created on the first run; keep it private and keep it")
+    protected_patterns: list[str] = param([], help="regular expressions for spans no rewriting step may change, beside "
+                                                   "the built-in placeholders, tags, URLs, e-mail addresses and numbers "
+                                                   "with units")
     max_files_per_source: int = param(20000, low=1, high=10_000_000, help="refuse globs matching more files")
     partition_docs: int = param(2000, low=1, high=1_000_000, help="documents per partition")
     shard_docs: int = param(5000, low=1, high=100_000_000, help="documents per output shard at most; shards hold whole partitions, "
@@ -60,14 +63,16 @@ class SourceSpec(Checked):
     licence: str = param(help="an SPDX licence expression or LicenseRef-...")
     consent: str = param(choices=tuple(CONSENT_SCOPES), help="the scope contributors agreed to")
     dialect: str = param("", help="the dialect, if the whole source is one")
-    script: str = param("", help="ISO 15924 code if the whole source uses one script")
+    script: str = param("", help="ISO 15924 code of the script the source is written in; when it is not the target "
+                                 "script, the [stages.script] tables entry for it converts the source, token by token")
     contributor: str = param("", help="pseudonymous contributor or team")
     date: str = param("", help="date or year of the material")
     encoding: str = param("utf-8", help="text encoding (a Python codec name such as 'cp1251'), or 'detect'")
     encodings: list[str] = param([], help="with encoding = 'detect': the code pages to choose among, e.g. "
                                           "['cp1251', 'koi8_r'] (default: the common legacy code pages)")
     priority: int = param(0, help="higher wins when duplicates are resolved")
-    transliterate: str = param("", help="transliteration table applied to this source")
+    transliterate: str = param("", help="a transliteration table for this source alone (instead of the table of its "
+                                        "script); Latin technical tokens and protected spans are left as they are")
     language: str = param("", help="the source's language as a BCP 47 tag, when it is known: language ID trusts "
                                    "it and does not classify the source's segments")
     attribution: bool = param(False, help="the contributors agreed to be named: keep real speaker, sender and "

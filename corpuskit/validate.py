@@ -44,6 +44,10 @@ def _tables(recipe) -> None:
     for s in recipe.sources:
         if s.transliterate:
             translit.load_table(_exists(recipe, s.transliterate, f"[[sources]] id = '{s.id}' key 'transliterate'"))
+        elif s.script and s.script != recipe.corpus.target_script and s.script not in recipe.stages["script"].tables:
+            raise RecipeError(f"{recipe.path}: [[sources]] id = '{s.id}' is written in {s.script}, not the target script "
+                              f"{recipe.corpus.target_script}, and [stages.script] tables has no {s.script} table; add "
+                              f"tables = {{ {s.script} = 'tables/....tsv' }}, or give the source a transliterate table.")
     v = recipe.stages["variants"]
     for key, value, load in (("table", v.table, vt.load_table), ("rules", v.rules, vt.load_rules),
                              ("protected", v.protected, vt.load_protected), ("costs", v.costs, load_costs)):

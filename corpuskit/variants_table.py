@@ -118,6 +118,7 @@ class Mapper:
     entries: list[VariantEntry]
     rules: list[Rule]
     protected: set[str] = field(default_factory=set)
+    protected_patterns: tuple = ()          # extra protected-span patterns from the recipe
 
     def __post_init__(self):
         self._compiled = [(r, regex.compile(r.pattern)) for r in self.rules]
@@ -148,13 +149,19 @@ class Mapper:
         return tok, None
 
     def apply(self, text: str, dialect: str | None = None, source: str | None = None) -> tuple[str, Counter]:
+        """The text with variant tokens mapped, outside protected spans; how often each entry or rule fired."""
+        from .protect import pieces
         used: Counter = Counter()
         out = []
-        for tok in tokens(text):
-            new, how = self.map_token(tok, dialect, source)
-            if how:
-                used[how] += 1
-            out.append(new)
+        for protected, piece in pieces(text, self.protected_patterns):
+            if protected:
+                out.append(piece)
+                continue
+            for tok in tokens(piece):
+                new, how = self.map_token(tok, dialect, source)
+                if how:
+                    used[how] += 1
+                out.append(new)
         return "".join(out), used
 
 

@@ -4,6 +4,8 @@ import pytest
 from corpuskit.errors import RecipeError
 from corpuskit.recipe import is_valid_language_tag, load_recipe
 
+from .conftest import ROOT, copy_demo
+
 BASE = '''
 [corpus]
 name = "t"
@@ -123,3 +125,22 @@ def test_bcp47_rfc5646_examples(tag, ok):
 def test_invalid_language_tag(tmp_path):
     msg = error(tmp_path, BASE.replace('language = "qnv"', 'language = "xx-yy-zz-qq"'))
     assert "BCP 47" in msg and "'language'" in msg
+
+
+def test_recipe_reference_is_in_step_with_the_code():
+    """RECIPE.md is generated from the parameter declarations; regenerate it with
+    `python -m corpuskit.reference > RECIPE.md` after changing a parameter."""
+    from corpuskit.reference import render
+    assert (ROOT / "RECIPE.md").read_text("utf-8") == render()
+    text = render()
+    for key in ("transliterate", "regions", "protected_patterns", "pseudonym_secret", "min_share", "context_letters"):
+        assert f"| `{key}` |" in text, key
+
+
+def test_a_source_in_another_script_needs_a_table(tmp_path):
+    recipe = copy_demo(tmp_path)
+    text = recipe.read_text("utf-8").replace('tables = { Cyrl = "tables/demo-cyrl-latn.tsv" }', "tables = {}")
+    recipe.write_text(text, "utf-8")
+    from corpuskit.validate import validate
+    with pytest.raises(RecipeError, match=r"'river-hymns' is written in Cyrl.*no Cyrl table"):
+        validate(load_recipe(recipe))

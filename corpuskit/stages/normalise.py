@@ -22,10 +22,12 @@ from dataclasses import dataclass
 import regex
 
 from ..ledger import LedgerRow
+from ..protect import outside
+from ..storage import stable_hash
 from ..config import Checked, param
 from ._base import drop_empty
 
-VERSION = "2"
+VERSION = "3"
 
 
 @dataclass(frozen=True)
@@ -38,11 +40,11 @@ class Params(Checked):
 
 
 def context_key(recipe, params) -> str:
-    return recipe.corpus.apostrophe
+    return stable_hash(recipe.corpus.apostrophe, list(recipe.corpus.protected_patterns))
 
 
 def build_context(recipe, params, cache, key):
-    return recipe.corpus.apostrophe
+    return {"apostrophe": recipe.corpus.apostrophe, "protected": list(recipe.corpus.protected_patterns)}
 
 
 # Characters removed everywhere, written by name.
@@ -162,7 +164,8 @@ def whitespace(text: str) -> str:
     return text
 
 
-def normalise_text(text: str, params: Params, apostrophe: str = "keep") -> tuple[str, list[str]]:
+def normalise_text(text: str, params: Params, apostrophe: str = "keep",
+                   protected: tuple = ()) -> tuple[str, list[str]]:
     """The normalised text and the names of the steps that changed it.
 
     A later step can turn repaired text into something ftfy reads as mojibake again
@@ -170,11 +173,11 @@ def normalise_text(text: str, params: Params, apostrophe: str = "keep") -> tuple
     the result suspicious the pass is repeated, a few times at most: the output is a
     fixed point and a second run changes nothing.
     """
-    text, steps = _normalise_once(text, params, apostrophe)
+    text, steps = _normalise_once(text, params, apostrophe, protected)
     for _ in range(3):
         if not (params.repair_mojibake and steps and _looks_bad(text)):
             break
-        again, more = _normalise_once(text, params, apostrophe)
+        again, more = _normalise_once(text, params, apostrophe, protected)
         if again == text:
             break
         text, steps = again, steps + more
@@ -186,7 +189,7 @@ def _looks_bad(text: str) -> bool:
     return is_bad(text)
 
 
-def _normalise_once(text: str, params: Params, apostrophe: str) -> tuple[str, list[str]]:
+def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple = ()) -> tuple[str, list[str]]:
     steps = []
 
     def step(name, new):
@@ -206,27 +209,30 @@ def _normalise_once(text: str, params: Params, apostrophe: str) -> tuple[str, li
         text = unicodedata.normalize("NFKC", text)
     else:
         step("nfc", unicodedata.normalize("NFC", text))
+    # The mapping passes leave protected spans (placeholders, tags, URLs, numbers with units) alone.
     # Quotes first: a mapped quote between letters is then an apostrophe, as on the next pass.
     if params.quotes == "ascii":
         if _HAS_QUOTE.search(text):
-            step("quotes", text.translate(QUOTES))
+            step("quotes", outside(text, lambda t: t.translate(QUOTES), protected))
     if apostrophe in APOSTROPHE_FORM:
-        step("apostrophe", _IN_WORD_APOSTROPHE.sub(APOSTROPHE_FORM[apostrophe], text))
+        step("apostrophe", outside(text, lambda t: _IN_WORD_APOSTROPHE.sub(APOSTROPHE_FORM[apostrophe], t), protected))
     if params.dashes == "hyphen":
         if _HAS_DASH.search(text):
-            step("dashes", text.translate(DASHES))
+            step("dashes", outside(text, lambda t: t.translate(DASHES), protected))
     if params.digits == "ascii":
-        step("digits", digits(text))
+        step("digits", outside(text, digits, protected))
     step("whitespace", whitespace(text))
     return text, steps
 
 
-def apply(docs: list[dict], params: Params, apostrophe: str | None):
+def apply(docs: list[dict], params: Params, ctx: dict | None):
+    ctx = ctx or {"apostrophe": "keep", "protected": []}
+    apostrophe, protected = ctx["apostrophe"], tuple(ctx["protected"])
     rows: list[LedgerRow] = []
     for doc in docs:
         keep = []
         for i, seg in enumerate(doc["segments"]):
-            new, steps = normalise_text(seg, params, apostrophe or "keep")
+            new, steps = normalise_text(seg, params, apostrophe, protected)
             if steps and steps != ["whitespace"]:
                 rows.append(LedgerRow("normalise", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
                                       "normalised", ",".join(steps), None, None))

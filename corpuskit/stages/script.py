@@ -23,7 +23,7 @@ from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from . import transliterate as translit
 
-VERSION = "3"
+VERSION = "4"
 COMMON, INHERITED, UNKNOWN = "Zyyy", "Zinh", "Zzzz"
 TOKEN = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{MODIFIER LETTER APOSTROPHE}\p{Nd}]+")
 
@@ -34,21 +34,32 @@ class Params(Checked):
     tables: dict = param({}, help="transliteration tables by script code, e.g. {Cyrl = 'tables/cyrl-latn.tsv'}")
 
 
-def context_key(recipe, params) -> str:
-    tables = dict(params.tables)
+def source_tables(recipe, params) -> dict[str, str]:
+    """Per source, the table that converts it: its own ``transliterate`` table, else the table of
+    the script it declares (``script``) when that is not the target script."""
+    out = {}
     for s in recipe.sources:
         if s.transliterate:
-            tables[f"source:{s.id}"] = s.transliterate
-    return stable_hash(recipe.corpus.target_script, recipe.corpus.letters,
+            out[s.id] = s.transliterate
+        elif s.script and s.script != recipe.corpus.target_script and s.script in params.tables:
+            out[s.id] = params.tables[s.script]
+    return out
+
+
+def context_key(recipe, params) -> str:
+    tables = dict(params.tables)
+    for sid, path in source_tables(recipe, params).items():
+        tables[f"source:{sid}"] = path
+    return stable_hash(recipe.corpus.target_script, recipe.corpus.letters, list(recipe.corpus.protected_patterns),
                        {k: file_sha256(recipe.resolve(v, f"[stages.script] tables.{k}")) for k, v in sorted(tables.items())})
 
 
 def build_context(recipe, params, cache, key):
     tables = {k: translit.load_table(recipe.resolve(v, f"[stages.script] tables.{k}")) for k, v in params.tables.items()}
-    by_source = {s.id: translit.load_table(recipe.resolve(s.transliterate, f"[[sources]] id = '{s.id}' key 'transliterate'"))
-                 for s in recipe.sources if s.transliterate}
+    by_source = {sid: translit.load_table(recipe.resolve(path, f"[[sources]] id = '{sid}' (table)"))
+                 for sid, path in source_tables(recipe, params).items()}
     return {"target": recipe.corpus.target_script, "tables": tables, "by_source": by_source,
-            "letters": recipe.corpus.letters}
+            "letters": recipe.corpus.letters, "protected": list(recipe.corpus.protected_patterns)}
 
 
 @lru_cache(maxsize=65536)
@@ -127,12 +138,17 @@ def _confusables() -> dict[tuple[str, str], tuple[str, ...]]:
     return {k: tuple(sorted(v)) for k, v in table.items()}
 
 
+# Scripts whose small letters look like their capitals' look-alikes' small letters (the data lists
+# Cyrillic К as K, but small к only as the rare ĸ).  Not Greek: Μ looks like M, but μ not like m.
+CASE_PAIRED = frozenset({("Cyrl", "Latn"), ("Latn", "Cyrl")})
+
+
 def look_alikes(ch: str, script: str) -> tuple[str, ...]:
-    """Letters of `script` that look like `ch`: its own UTS #39 entries, and the lower case of
-    its capital's entries (the data lists Cyrillic К as K, but small к only as the rare ĸ)."""
+    """Letters of `script` that look like `ch`: its own UTS #39 entries, and, between Cyrillic and
+    Latin, the lower case of its capital's entries."""
     table = _confusables()
     found = list(table.get((ch, script), ()))
-    if ch.islower() and len(ch.upper()) == 1:
+    if ch.islower() and len(ch.upper()) == 1 and (char_script(ch), script) in CASE_PAIRED:
         found += [c.lower() for c in table.get((ch.upper(), script), ()) if len(c.lower()) == 1]
     return tuple(dict.fromkeys(found))
 
@@ -183,6 +199,54 @@ def _scripts_in(text: str) -> int:
     return len({char_script(c) for c in set(text)} - {COMMON, INHERITED})
 
 
+def _unit_context(text: str, start: int, end: int) -> bool:
+    """A token next to a digit (``5μA``, ``μg5``) or after a number and a space is a unit or formula."""
+    before = text[max(0, start - 2):start]
+    return bool((before[-1:].isdigit()) or (before[-1:] == " " and before[:1].isdigit())
+                or text[end:end + 1].isdigit())
+
+
+def rewrite_segment(seg: str, ctx: dict, table_for_source, repair: bool):
+    """The segment with each token outside protected spans transliterated by its own script's table
+    (or the source's), then tokens still mixed-script repaired; returns (text, transliterated
+    (before, after) pairs, repaired (before, after) pairs, tokens left mixed)."""
+    from ..protect import pieces
+
+    target, letters = ctx["target"], ctx.get("letters", "")
+    translits, repairs, mixed = [], [], []
+    out = []
+    for protected, piece in pieces(seg, ctx.get("protected", ())):
+        if protected:
+            out.append(piece)
+            continue
+        last = 0
+        for m in TOKEN.finditer(piece):
+            tok = m.group()
+            out.append(piece[last:m.start()])
+            last = m.end()
+            # A mixed-script word is first written in its dominant script (Latin p inside a Cyrillic
+            # word is Cyrillic р, which transliterates to r), unless it is a unit or formula.
+            if repair and len(token_scripts(tok)) > 1 and not _unit_context(piece, m.start(), m.end()):
+                fixed, is_mixed = repair_token(tok, target, letters)
+                if fixed != tok:
+                    repairs.append((tok, fixed))
+                    tok = fixed
+                if is_mixed:
+                    mixed.append(tok)
+            script = token_script(tok)
+            table = table_for_source if table_for_source is not None and table_for_source.source == script else None
+            if table is None and script not in (target, COMMON, INHERITED):
+                table = ctx["tables"].get(script)
+            if table is not None:
+                new = unicodedata.normalize("NFC", translit.apply_table(table, tok))
+                if new != tok:
+                    translits.append((tok, new, table))
+                    tok = new
+            out.append(tok)
+        out.append(piece[last:])
+    return "".join(out), translits, repairs, mixed
+
+
 def apply(docs: list[dict], params: Params, ctx: dict | None):
     ctx = ctx or {"target": "Latn", "tables": {}, "by_source": {}}
     rows: list[LedgerRow] = []
@@ -191,38 +255,27 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
         seg_scripts, mixed_tokens, changed_doc = [], [], False
         source_table = ctx["by_source"].get(doc["source"])
         for i, seg in enumerate(doc["segments"]):
-            new = seg
-            if params.repair_confusables and _scripts_in(seg) > 1:  # one script: nothing can be mixed
-                pieces, repaired = [], []
-                last = 0
-                for m in TOKEN.finditer(seg):
-                    tok, is_mixed = repair_token(m.group(), ctx["target"], ctx.get("letters", ""))
-                    if tok != m.group():
-                        repaired.append(f"{m.group()}→{tok}")
-                    if is_mixed:
-                        mixed_tokens.append(tok)
-                    pieces.append(seg[last:m.start()] + tok)
-                    last = m.end()
-                new = "".join(pieces) + seg[last:]
-                if repaired:
-                    rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
-                                          "confusable-repaired", "; ".join(repaired)[:500], None, seg[:500]))
-            script = text_script(new)
-            table = source_table or ctx["tables"].get(script)
-            if table is not None and (source_table is not None or script != ctx["target"]):
-                out = unicodedata.normalize("NFC", translit.apply_table(table, new))
-                if out != new:
-                    if id(table) not in inverses:
-                        inverses[id(table)] = translit.inverse_table(table)
-                    back = "round trip ok" if translit.round_trips(inverses[id(table)], new, out) else "round trip differs"
-                    rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
-                                          "transliterated", f"{table.source}→{table.target} ({table.name}); {back}",
-                                          None, new[:500]))
-                    new = out
-                    changed_doc = True
-                script = text_script(new)
+            if _scripts_in(seg) <= 1 and source_table is None and text_script(seg) in (ctx["target"], COMMON, INHERITED):
+                seg_scripts.append(text_script(seg))   # one script, the target's: nothing to rewrite
+                continue
+            new, translits, repairs, mixed = rewrite_segment(seg, ctx, source_table, params.repair_confusables)
+            mixed_tokens += mixed
+            if translits:
+                tables = {id(t): t for _, _, t in translits}
+                for t in tables.values():
+                    if id(t) not in inverses:
+                        inverses[id(t)] = translit.inverse_table(t)
+                ok = all(translit.round_trips(inverses[id(t)], before, after) for before, after, t in translits)
+                names = "; ".join(f"{t.source}→{t.target} ({t.name})" for t in tables.values())
+                rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                      "transliterated", f"{names}; {'round trip ok' if ok else 'round trip differs'}",
+                                      None, seg[:500]))
+                changed_doc = True
+            if repairs:
+                rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                      "confusable-repaired", "; ".join(f"{a}→{b}" for a, b in repairs)[:500], None, seg[:500]))
             doc["segments"][i] = new
-            seg_scripts.append(script)
+            seg_scripts.append(text_script(new))
         doc["seg_script"] = seg_scripts
         if changed_doc:
             doc["transliterated"] = True

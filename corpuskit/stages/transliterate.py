@@ -182,7 +182,7 @@ def inverse_table(table: Table) -> Table:
 def round_trips(inverse: Table, source_text: str, output: str) -> bool:
     """Whether the output maps back to the source text (compared after NFC and case folding)."""
     import unicodedata
-    back = unicodedata.normalize("NFC", apply_table(inverse, unicodedata.normalize("NFD", output))).casefold()
+    back = unicodedata.normalize("NFC", apply_table(inverse, unicodedata.normalize("NFC", output))).casefold()
     return back == unicodedata.normalize("NFC", source_text).casefold()
 
 

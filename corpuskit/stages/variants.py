@@ -18,7 +18,7 @@ from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from .. import variants_table as vt
 
-VERSION = "2"
+VERSION = "3"
 
 
 @dataclass(frozen=True)
@@ -35,14 +35,15 @@ def _paths(recipe, params):
 
 
 def context_key(recipe, params) -> str:
-    return stable_hash({k: file_sha256(p) for k, p in _paths(recipe, params)})
+    return stable_hash({k: file_sha256(p) for k, p in _paths(recipe, params)}, list(recipe.corpus.protected_patterns))
 
 
 def build_context(recipe, params, cache, key):
     paths = dict(_paths(recipe, params))
     return vt.Mapper(vt.load_table(paths["table"]) if "table" in paths else [],
                      vt.load_rules(paths["rules"]) if "rules" in paths else [],
-                     vt.load_protected(paths["protected"]) if "protected" in paths else set())
+                     vt.load_protected(paths["protected"]) if "protected" in paths else set(),
+                     tuple(recipe.corpus.protected_patterns))
 
 
 def apply(docs: list[dict], params: Params, mapper):
