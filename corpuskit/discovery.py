@@ -34,6 +34,7 @@ from pathlib import Path
 
 import regex
 
+from .casing import fold_case
 from .errors import DataError, RecipeError
 from .variants_table import TABLE_HEADER, load_table, restore_cell, tokens, write_sheet
 
@@ -169,22 +170,34 @@ class TypeStats:
     dialects: Counter = field(default_factory=Counter)
     sources: Counter = field(default_factory=Counter)
     examples: list[str] = field(default_factory=list)
+    full: int = 0        # uses in lines that type letters beyond ASCII (full-orthography lines)
 
 
-def words_of(text: str) -> list[str]:
-    return [t.casefold() for t in tokens(text) if _WORDISH.search(t) and not t.isdigit()]
+def words_of(text: str, language: str = "") -> list[str]:
+    return [fold_case(t, language) for t in tokens(text) if _WORDISH.search(t) and not t.isdigit()]
 
 
-def collect(docs, window: int = 2, examples: int = 3) -> tuple[dict[str, TypeStats], dict[str, Counter]]:
-    """Type statistics (counts by dialect and source, example segments) and context counts."""
+_NON_ASCII_LETTER = regex.compile(r"[^\x00-\x7f](?<=\p{L}|\p{M})")
+
+
+def full_orthography(text: str) -> bool:
+    """Whether a line uses letters beyond ASCII: its writer could type the special letters."""
+    return not text.isascii() and bool(_NON_ASCII_LETTER.search(text))
+
+
+def collect(docs, window: int = 2, examples: int = 3, language: str = "") -> tuple[dict[str, TypeStats], dict[str, Counter]]:
+    """Type statistics (counts by dialect and source, uses in full-orthography lines, example
+    segments) and context counts."""
     stats: dict[str, TypeStats] = defaultdict(TypeStats)
     contexts: dict[str, Counter] = defaultdict(Counter)
     for doc in docs:
         for seg in doc["segments"]:
-            words = words_of(seg)
+            words = words_of(seg, language)
+            full = full_orthography(seg)
             for k, w in enumerate(words):
                 st = stats[w]
                 st.count += 1
+                st.full += full
                 st.dialects[doc.get("dialect") or "unknown"] += 1
                 st.sources[doc["source"]] += 1
                 if len(st.examples) < examples and seg not in st.examples:
@@ -260,18 +273,29 @@ def candidate_pairs(words: list[str], costs: CostTable, min_length: int = 2) -> 
     return pairs
 
 
-def is_stand_in(variant: str, canonical: str, costs: CostTable) -> bool:
-    """Whether ``variant`` is ``canonical`` written on a plain keyboard: all ASCII, and equal to it
-    once marks are stripped and every cheap alternation is replaced by its ASCII side."""
-    if not variant.isascii() or variant == canonical:
-        return False
-    plain = strip_marks(canonical.casefold())
-    for a, b, cost in costs.alternations:
+def plain_form(word: str, costs: CostTable) -> str:
+    """``word`` typed on a plain keyboard: every cheap alternation with an ASCII side replaced by it
+    (longest first: ä -> ae, ł -> l), then the remaining marks stripped."""
+    plain = word.lower()
+    for a, b, cost in sorted(costs.alternations, key=lambda t: -max(len(t[0]), len(t[1]))):
         if cost <= 0.5:
             ascii_side, other = (a, b) if a.isascii() else (b, a)
             if ascii_side.isascii() and not other.isascii():
-                plain = plain.replace(strip_marks(other), ascii_side)
-    return plain == variant
+                plain = plain.replace(other, ascii_side)
+    return strip_marks(plain)
+
+
+def is_stand_in(variant: str, canonical: str, costs: CostTable) -> bool:
+    """Whether ``variant`` is ``canonical`` written on a plain keyboard: all ASCII, and equal to
+    ``plain_form(canonical)``, which has letters beyond ASCII.
+
+    >>> costs = CostTable([("ü", "ue", 0.2)])
+    >>> is_stand_in("natuerlich", "natürlich", costs), is_stand_in("laenge", "lange", costs)
+    (True, False)
+    """
+    if not variant.isascii() or variant == canonical or canonical.isascii():
+        return False
+    return plain_form(canonical, costs) == variant
 
 
 def corpus_dialect_shares(stats: dict[str, "TypeStats"]) -> dict[str, float]:
@@ -305,25 +329,63 @@ def _orthography_weight(word: str, letters: str) -> int:
 
 
 def choose_canonical(a: str, b: str, stats: dict[str, TypeStats], letters: str) -> tuple[str, str, str]:
-    """(variant, canonical, reason): the form using more of the orthography, else the more frequent."""
+    """(variant, canonical, reason): the form that writes more of the orthography when writers who
+    type the special letters use it; else the form more used in such full-orthography lines;
+    else the more frequent."""
     wa, wb = _orthography_weight(a, letters), _orthography_weight(b, letters)
     ca, cb = stats[a].count, stats[b].count
+    fa, fb = stats[a].full, stats[b].full
     if wa != wb:
-        variant, canonical = (a, b) if wb > wa else (b, a)
-        return variant, canonical, f"'{canonical}' uses the orthography's letters or marks"
+        special, other = (b, a) if wb > wa else (a, b)
+        if stats[special].full or not stats[other].full:
+            return other, special, (f"'{special}' uses the orthography's letters or marks and is written in lines "
+                                    f"that type them ({stats[special].full} uses)")
+    if fa != fb:
+        variant, canonical = (a, b) if fb > fa else (b, a)
+        return variant, canonical, f"'{canonical}' is more used in lines that type the special letters ({max(fa, fb)} vs {min(fa, fb)})"
     if ca != cb:
         variant, canonical = (a, b) if cb > ca else (b, a)
         return variant, canonical, f"'{canonical}' is more frequent ({max(ca, cb)} vs {min(ca, cb)})"
     return (max(a, b), min(a, b), "equal evidence; alphabetical")
 
 
+# A plain form is taken for a word of its own when at least this many of its uses, and this share
+# of the rate at which words in general appear in full-orthography lines, are in such lines: a
+# stand-in typed by someone who can type the letters is rare (measured on wordfreq vocabularies of
+# Czech, Polish and Turkish, benchmarks/variants_real.py).
+MINIMAL_PAIR_USES = 3
+MINIMAL_PAIR_SHARE = 0.15
+
+
+def minimal_pair_evidence(variant: str, canonical: str, stats: dict[str, TypeStats], full_share: float,
+                          wordlist: set[str] | None) -> str:
+    """Why the two forms look like two real words (empty: no such evidence).  A writer who types the
+    special letters elsewhere in the same line meant the plain form: a plain form used in such lines
+    about as often as words in general are is a word of its own."""
+    if wordlist is not None and variant in wordlist and canonical in wordlist:
+        return "both are words of the recipe's word list"
+    v = stats[variant]
+    if v.count and v.full >= MINIMAL_PAIR_USES and v.full / v.count >= MINIMAL_PAIR_SHARE * full_share:
+        return (f"'{variant}' is also written in lines that type the special letters ({v.full} of {v.count} uses, "
+                f"against {full_share:.0%} of all words)")
+    return ""
+
+
 def propose(stats: dict[str, TypeStats], contexts: dict[str, Counter], costs: CostTable, letters: str = "",
-            top: int = 200, exclude: set[tuple[str, str]] = frozenset()) -> list[Candidate]:
-    """Ranked candidate pairs, best first."""
+            top: int = 200, exclude: set[tuple[str, str]] = frozenset(), language: str = "",
+            wordlist: set[str] | None = None, protected: set[str] = frozenset(),
+            rejected_forms: dict[str, int] | None = None) -> list[Candidate]:
+    """Ranked candidate pairs, best first: keyboard stand-ins and slips first, pairs that look like
+    two real words (minimal pairs) ranked below them, with the evidence in ``why``.  Pairs with a
+    protected word, and variant forms rejected before (with any partner, until their count has
+    doubled since), are not proposed."""
+    rejected_forms = rejected_forms or {}
     pairs = candidate_pairs(sorted(stats), costs)
+    total = sum(st.count for st in stats.values())
+    full_share = sum(st.full for st in stats.values()) / total if total else 0.0
     scored = []
     for a, b in sorted(pairs):
-        if (a, b) in exclude or (b, a) in exclude:
+        if (a, b) in exclude or (b, a) in exclude or a in protected or b in protected:
             continue
         d, edits = weighted_distance(a, b, costs)
         if d > MAX_DISTANCE:
@@ -337,20 +399,26 @@ def propose(stats: dict[str, TypeStats], contexts: dict[str, Counter], costs: Co
         form = max(0.0, 1.0 - d / MAX_DISTANCE)
         attested = min(1.0, math.log10(1 + max(stats[a].count, stats[b].count)) / 2)
         variant, canonical, reason = choose_canonical(a, b, stats, letters)
-        stand_in = is_stand_in(variant, canonical, costs)
-        low, high = sorted((stats[a].count, stats[b].count))
-        lopsided = 1.0 - low / high   # a slip is rare next to its canonical form; two real words need not be
-        score = 0.35 * form + 0.15 * ctx + 0.05 * attested + 0.25 * stand_in + 0.2 * lopsided
+        before = rejected_forms.get(variant)
+        if before is not None and stats[variant].count < 2 * max(before, 1):
+            continue
+        minimal = minimal_pair_evidence(variant, canonical, stats, full_share, wordlist)
+        stand_in = is_stand_in(variant, canonical, costs) and not minimal
+        # a slip or stand-in is rare next to its canonical form: only that direction counts
+        lopsided = max(0.0, 1.0 - stats[variant].count / max(stats[canonical].count, 1))
+        score = 0.35 * form + 0.15 * ctx + 0.05 * attested + 0.25 * stand_in + 0.2 * lopsided - 0.6 * bool(minimal)
         if stand_in:
             reason = (f"'{variant}' is '{canonical}' typed without its special letters and marks "
-                      f"(a keyboard stand-in); {reason}")
+                      f"(a keyboard stand-in, used only in lines without them); {reason}")
+        if minimal:
+            reason = f"likely a minimal pair, two real words: {minimal}; {reason}"
         da, db = _dialects(stats[variant]), _dialects(stats[canonical])
         if (da and db and not (da & db)) or dialect_pattern(stats[variant], stats[canonical], dialect_share):
             kind, scope = "dialect", f"dialect:{sorted(da)[0]}" if len(da) == 1 else "all"
             why = (f"used in {', '.join(sorted(da))} while '{canonical}' is used in {', '.join(sorted(db))}: "
                    "a dialect difference, not an error")
         else:
-            kind, scope = "spelling", "all"
+            kind, scope = ("minimal-pair" if minimal else "spelling"), "all"
             why = reason
         why += f"; edits: {', '.join(edits) or 'none'}"
         out.append(Candidate(variant, canonical, round(score, 4), d, round(ctx, 4), kind, scope, why))
@@ -386,11 +454,52 @@ def sheet_rows(candidates: list[Candidate], stats: dict[str, TypeStats]) -> list
 REJECTED_HEADER = "# corpuskit rejected variant pairs 1"
 
 
-def load_rejected(path: Path) -> set[tuple[str, str]]:
+class WordList:
+    """The recipe's word list: a Hunspell dictionary (``.dic`` with its ``.aff`` beside it, read with
+    spylls, a pure-Python port of Hunspell) or a plain list, one word per line.  ``word in wordlist``
+    asks the dictionary (its affix rules included), once per word."""
+
+    def __init__(self, path: Path):
+        self.path = Path(path)
+        self._known: dict[str, bool] = {}
+        aff = self.path.with_suffix(".aff")
+        if self.path.suffix == ".dic" and aff.exists():
+            from spylls.hunspell import Dictionary
+            self._dictionary = Dictionary.from_files(str(self.path.with_suffix("")))
+            self._words = None
+        else:
+            self._dictionary = None
+            self._words = {unicodedata.normalize("NFC", line.strip().lower())
+                           for line in self.path.read_text(encoding="utf-8").splitlines() if line.strip()}
+
+    def __contains__(self, word: str) -> bool:
+        if self._words is not None:
+            return word in self._words
+        if word not in self._known:
+            d = self._dictionary
+            self._known[word] = bool(d.lookup(word) or d.lookup(word.capitalize()))
+        return self._known[word]
+
+
+def _rejected_lines(path: Path) -> list[list[str]]:
     if not Path(path).exists():
-        return set()
-    return {tuple(line.split("\t")[:2]) for line in Path(path).read_text(encoding="utf-8").splitlines()[1:]
-            if line.strip() and not line.startswith("#") and "\t" in line}
+        return []
+    return [line.split("\t") for line in Path(path).read_text(encoding="utf-8").splitlines()[1:]
+            if line.strip() and not line.startswith("#") and "\t" in line]
+
+
+def load_rejected(path: Path) -> set[tuple[str, str]]:
+    return {(cols[0], cols[1]) for cols in _rejected_lines(path)}
+
+
+def load_rejected_forms(path: Path) -> dict[str, int]:
+    """Variant forms rejected in review, with their count then (0 where unknown): such a form is not
+    proposed again with another partner until its count has doubled."""
+    forms: dict[str, int] = {}
+    for cols in _rejected_lines(path):
+        count = int(cols[2]) if len(cols) > 2 and cols[2].strip().isdigit() else 0
+        forms[cols[0]] = max(forms.get(cols[0], 0), count)
+    return forms
 
 
 def accept_sheet(sheet: Path, table: Path, rejected: Path) -> tuple[int, int]:
@@ -430,7 +539,8 @@ def accept_sheet(sheet: Path, table: Path, rejected: Path) -> tuple[int, int]:
                 add.append((variant, canonical, scope, r.get("why", "")[:120].replace("\t", " ")))
         elif (variant, canonical) not in seen_rejected:
             seen_rejected.add((variant, canonical))
-            reject.append((variant, canonical))
+            count = r.get("variant_count", "").strip()
+            reject.append((variant, canonical, count if count.isdigit() else "0"))
     if add:
         text = table.read_text(encoding="utf-8") if table.exists() else f"{TABLE_HEADER}\nvariant\tcanonical\tscope\tnote\n"
         text = text if text.endswith("\n") else text + "\n"
@@ -438,7 +548,7 @@ def accept_sheet(sheet: Path, table: Path, rejected: Path) -> tuple[int, int]:
         table.write_text(text, encoding="utf-8")
     if reject:
         text = rejected.read_text(encoding="utf-8") if rejected.exists() else f"{REJECTED_HEADER}\n"
-        text += "".join(f"{v}\t{c}\n" for v, c in reject)
+        text += "".join(f"{v}\t{c}\t{n}\n" for v, c, n in reject)
         rejected.write_text(text, encoding="utf-8")
     return len(add), len(reject)
 
@@ -453,20 +563,29 @@ def propose_from_run(recipe, out: Path, sheet: Path, top: int) -> int:
     from .engines import make_engine
     from .runner import OutputLock, Runner
 
+    from .variants_table import load_protected
+
     params = recipe.stages["variants"]
     costs = load_costs(recipe.resolve(params.costs, "[stages.variants] costs")) if params.costs else CostTable()
     exclude: set[tuple[str, str]] = set()
+    rejected_forms: dict[str, int] = {}
     if params.table:
         table = recipe.resolve(params.table, "[stages.variants] table")
         if table.exists():
             exclude |= {(e.variant.casefold(), e.canonical.casefold()) for e in load_table(table)}
         exclude |= load_rejected(rejected_path(table))
+        rejected_forms = load_rejected_forms(rejected_path(table))
+    protected = load_protected(recipe.resolve(params.protected, "[stages.variants] protected")) if params.protected else set()
+    wordlist = WordList(recipe.resolve(params.wordlist, "[stages.variants] wordlist")) if params.wordlist else None
     with OutputLock(out), make_engine("local", None, None) as engine:
         runner = Runner(recipe, Path(out), engine)
         runner.run(until="filter")
         docs = [d for key in runner.last_keys["filter"] for d in runner.cache.read_docs("filter", key)]
-    stats, contexts = collect(docs)
-    candidates = propose(stats, contexts, costs, recipe.corpus.letters, top, exclude)
+    language = recipe.corpus.language
+    stats, contexts = collect(docs, language=language)
+    candidates = propose(stats, contexts, costs, recipe.corpus.letters, top, exclude, language=language,
+                         wordlist=wordlist, protected={fold_case(w, language) for w in protected},
+                         rejected_forms=rejected_forms)
     write_sheet(Path(sheet), sheet_rows(candidates, stats), SHEET_COLUMNS)
     return len(candidates)
 

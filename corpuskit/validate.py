@@ -50,7 +50,8 @@ def _tables(recipe) -> None:
                               f"tables = {{ {s.script} = 'tables/....tsv' }}, or give the source a transliterate table.")
     v = recipe.stages["variants"]
     for key, value, load in (("table", v.table, vt.load_table), ("rules", v.rules, vt.load_rules),
-                             ("protected", v.protected, vt.load_protected), ("costs", v.costs, load_costs)):
+                             ("protected", v.protected, vt.load_protected), ("costs", v.costs, load_costs),
+                             ("wordlist", v.wordlist, lambda p: p)):
         if value:
             load(_exists(recipe, value, f"[stages.variants] {key}"))
 

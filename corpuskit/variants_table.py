@@ -19,6 +19,7 @@ from pathlib import Path
 
 import regex
 
+from .casing import fold_case
 from .errors import RecipeError
 from .sheets import neutralise_cell, restore_cell, write_sheet  # noqa: F401 (re-exported)
 
@@ -119,12 +120,14 @@ class Mapper:
     rules: list[Rule]
     protected: set[str] = field(default_factory=set)
     protected_patterns: tuple = ()          # extra protected-span patterns from the recipe
+    language: str = ""                      # folds case as the language does (Turkish İ/ı)
 
     def __post_init__(self):
         self._compiled = [(r, regex.compile(r.pattern)) for r in self.rules]
         self._by_variant: dict[str, list[VariantEntry]] = {}
         for e in self.entries:
-            self._by_variant.setdefault(e.variant.casefold(), []).append(e)
+            self._by_variant.setdefault(fold_case(e.variant, self.language), []).append(e)
+        self.protected = {fold_case(w, self.language) for w in self.protected}
 
     @property
     def empty(self) -> bool:
@@ -135,12 +138,12 @@ class Mapper:
         return scope == "all" or scope == f"dialect:{dialect}" or scope == f"source:{source}"
 
     def map_token(self, tok: str, dialect: str | None, source: str | None) -> tuple[str, str | None]:
-        if not _WORD.search(tok) or tok.casefold() in self.protected:
+        low = fold_case(tok, self.language)
+        if not _WORD.search(tok) or low in self.protected:
             return tok, None
-        for e in self._by_variant.get(tok.casefold(), ()):
+        for e in self._by_variant.get(low, ()):
             if self._applies(e.scope, dialect, source):
                 return match_case(tok, e.canonical), f"table:{e.variant}→{e.canonical}"
-        low = tok.casefold()
         for r, pat in self._compiled:
             if self._applies(r.scope, dialect, source):
                 new = pat.sub(r.replacement, low)

@@ -149,3 +149,78 @@ def test_discovery_on_british_and_american_spellings():
     recall = found / len(gold)
     print(f"British/American spellings: {len(gold)} pairs in the 10,000 most frequent words, recall {recall:.3f}")
     assert len(gold) >= 30 and recall >= 0.75
+
+
+# -- real vocabularies: stand-ins found, real words left alone ---------------------------------------
+
+@pytest.mark.external
+@pytest.mark.parametrize("language", ["cs", "pl", "tr", "de"])
+def test_stand_ins_found_and_minimal_pairs_kept_below_them(language):
+    """Source: wordfreq's word frequencies (Czech, Polish, Turkish; German for the two-letter stand-ins
+    ae, oe, ue, ss), lines drawn from the 5,000 most frequent words, a fifth typed without the special
+    letters; minimal pairs decided by Debian's Hunspell dictionaries (hunspell-cs, -pl, -tr, -de-de),
+    read with spylls.  See benchmarks/variants_real.py for the protocol."""
+    import os
+    import sys
+    if not os.path.exists("/usr/share/hunspell/cs_CZ.dic"):
+        pytest.skip("Debian's Hunspell dictionaries are not installed (tests/system-setup.sh installs them as root)")
+    sys.path.insert(0, str(ROOT / "benchmarks"))
+    import variants_real
+    r = variants_real.evaluate(language)
+    print(r)
+    recall = next(v for k, v in r.items() if k.startswith("recall_top_"))
+    assert recall >= 0.9 and r["precision_top_k"] >= 0.8 and r["minimal_pairs_in_top_k"] <= 0.2
+
+
+def _stats(**counts):
+    """TypeStats from name=(count, uses in full-orthography lines)."""
+    return {w: D.TypeStats(count=c, full=f) for w, (c, f) in counts.items()}
+
+
+def test_a_plain_form_written_beside_special_letters_is_a_minimal_pair():
+    # 'ne' is used in lines that type special letters: a word of its own, shown below stand-ins
+    stats = _stats(ne=(120, 90), né=(40, 40), protoze=(30, 0), protože=(90, 90), ty=(50, 40), tý=(20, 20))
+    ranked = D.propose(stats, {}, D.CostTable(), top=10)
+    kinds = {(c.variant, c.canonical): c.kind for c in ranked}
+    assert kinds[("protoze", "protože")] == "spelling" and "keyboard stand-in" in ranked[0].why
+    assert ranked[0].variant == "protoze"
+    assert {c.kind for c in ranked if c.variant in ("ne", "ty", "né", "tý")} == {"minimal-pair"}
+    assert "likely a minimal pair" in next(c.why for c in ranked if c.kind == "minimal-pair")
+
+
+def test_the_canonical_form_is_the_one_written_in_full_orthography_then_the_frequent_one():
+    stats = _stats(nez=(300, 0), než=(1100, 1100), něž=(40, 40))
+    best = {c.variant: c.canonical for c in D.propose(stats, {}, D.CostTable(), top=10)}
+    assert best["nez"] == "než"
+
+
+def test_protected_words_and_rejected_forms_are_not_proposed():
+    stats = _stats(ne=(120, 0), né=(40, 40), ně=(30, 30), tabu=(5, 0), tabú=(50, 50))
+    assert not [c for c in D.propose(stats, {}, D.CostTable(), top=10, protected={"tabu"}) if "tabu" in (c.variant, c.canonical)]
+    again = D.propose(stats, {}, D.CostTable(), top=10, exclude={("ne", "né")}, rejected_forms={"ne": 120})
+    assert not [c for c in again if c.variant == "ne"]                  # not back with 'ně'
+    later = D.propose({**stats, "ne": D.TypeStats(count=300, full=0)}, {}, D.CostTable(), top=10,
+                      exclude={("ne", "né")}, rejected_forms={"ne": 120})
+    assert [c.canonical for c in later if c.variant == "ne"] == ["ně"]    # the evidence changed: its count doubled
+
+
+def test_turkish_capitals_fold_to_turkish_letters():
+    docs = [{"source": "s", "dialect": None, "segments": ["İlk IŞIK ilk ışık"]}]
+    stats, _ = D.collect(docs, language="tr")
+    assert set(stats) == {"ilk", "ışık"}
+    assert "i\u0307lk" in D.collect(docs)[0]      # language-blind lower case: i with a combining dot
+
+
+def test_two_letter_stand_ins_both_directions():
+    costs = D.CostTable([("ä", "ae", 0.2), ("ö", "oe", 0.2), ("ü", "ue", 0.2), ("ß", "ss", 0.2)])
+    assert D.is_stand_in("natuerlich", "natürlich", costs) and D.is_stand_in("strasse", "straße", costs)
+    assert not D.is_stand_in("laenge", "lange", costs) and not D.is_stand_in("natürlich", "natuerlich", costs)
+
+
+def test_a_word_list_marks_pairs_of_two_words(tmp_path):
+    words = tmp_path / "words.txt"
+    words.write_text("byt\nbýt\nprotože\n", "utf-8")
+    stats = _stats(byt=(10, 0), být=(90, 90), protoze=(30, 0), protože=(90, 90))
+    ranked = D.propose(stats, {}, D.CostTable(), top=10, wordlist=D.WordList(words))
+    assert [c.variant for c in ranked] == ["protoze", "byt"] and ranked[1].kind == "minimal-pair"
+    assert "word list" in ranked[1].why

@@ -18,7 +18,7 @@ from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from .. import variants_table as vt
 
-VERSION = "3"
+VERSION = "4"
 
 
 @dataclass(frozen=True)
@@ -27,6 +27,9 @@ class Params(Checked):
     rules: str = param("", help="ordered rewrite rules (TSV: pattern, replacement, scope, note)")
     protected: str = param("", help="words never rewritten, one per line")
     costs: str = param("", help="edit costs for variant discovery (TSV: from, to, cost), e.g. ɛ/e cheap")
+    wordlist: str = param("", help="the language's word list for variant discovery: a Hunspell .dic (with its .aff "
+                                   "beside it) or one word per line; pairs of two listed words are shown as likely "
+                                   "minimal pairs, below keyboard stand-ins")
 
 
 def _paths(recipe, params):
@@ -43,7 +46,7 @@ def build_context(recipe, params, cache, key):
     return vt.Mapper(vt.load_table(paths["table"]) if "table" in paths else [],
                      vt.load_rules(paths["rules"]) if "rules" in paths else [],
                      vt.load_protected(paths["protected"]) if "protected" in paths else set(),
-                     tuple(recipe.corpus.protected_patterns))
+                     tuple(recipe.corpus.protected_patterns), recipe.corpus.language)
 
 
 def apply(docs: list[dict], params: Params, mapper):
