@@ -35,6 +35,7 @@ from pathlib import Path
 import regex
 
 from .casing import fold_case
+from .words import NO_SPACE, words as split_words
 from .errors import DataError, RecipeError
 from .variants_table import TABLE_HEADER, load_table, restore_cell, tokens, write_sheet
 
@@ -174,6 +175,8 @@ class TypeStats:
 
 
 def words_of(text: str, language: str = "") -> list[str]:
+    if NO_SPACE.search(text):    # scripts without spaces between words: a dictionary segmenter
+        return [fold_case(w, language) for w in split_words(text, language)]
     return [fold_case(t, language) for t in tokens(text) if _WORDISH.search(t) and not t.isdigit()]
 
 
@@ -324,8 +327,10 @@ def _dialects(st: "TypeStats", min_count: int = 2) -> set[str]:
 
 
 def _orthography_weight(word: str, letters: str) -> int:
-    """How much of the orthography a form uses: marks and the alphabet's non-ASCII letters."""
-    return sum(1 for g in graphemes(word) if g != strip_marks(g) or (not g.isascii() and g in letters))
+    """How much of the orthography a form uses: marks, the alphabet's non-ASCII letters, and
+    zero-width joiners and non-joiners (spelling in Persian and Indic scripts)."""
+    return (sum(1 for g in graphemes(word) if g != strip_marks(g) or (not g.isascii() and g in letters))
+            + sum(word.count(j) for j in "\N{ZERO WIDTH NON-JOINER}\N{ZERO WIDTH JOINER}"))
 
 
 def choose_canonical(a: str, b: str, stats: dict[str, TypeStats], letters: str) -> tuple[str, str, str]:

@@ -7,6 +7,7 @@ may not leave it unless ``[corpus] allow_outside_paths = true``.
 """
 from __future__ import annotations
 
+import dataclasses
 import glob
 import hashlib
 import os
@@ -16,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from .config import Checked, build, param, suggest as _suggest
+from .scripts import canonical_script
 from .errors import RecipeError
 
 __all__ = ["Recipe", "CorpusSpec", "SourceSpec", "load_recipe", "build", "MEDIA", "CONSENT_SCOPES"]
@@ -248,6 +250,7 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
         raise RecipeError(f"{path}: missing the [corpus] table; add [corpus] with name and language.")
     corpus = build(CorpusSpec, data["corpus"], "[corpus]", path)
     _check_language(corpus, path)
+    corpus = dataclasses.replace(corpus, target_script=canonical_script(corpus.target_script))
     _check_regions(corpus, path)
     raw_sources = data.get("sources", [])
     if not isinstance(raw_sources, list) or not raw_sources:
@@ -257,6 +260,9 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
     for i, table in enumerate(raw_sources):
         where = f"[[sources]] #{i + 1}" + (f" (id = '{table.get('id')}')" if isinstance(table, dict) and "id" in table else "")
         src = build(SourceSpec, table, where, path)
+        if src.script:
+            _check_script(src.script, f"{where} key 'script'", path)
+            src = dataclasses.replace(src, script=canonical_script(src.script))
         if src.format not in READERS:
             raise RecipeError(f"{path}: {where} key 'format' = '{src.format}' is not a known reader"
                               f"{_suggest(src.format, READERS)}")
@@ -289,6 +295,12 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
                   sources=tuple(sources), stages=stages)
 
 
+def _check_script(code: str, where: str, path: Path) -> None:
+    if canonical_script(code) is None:
+        raise RecipeError(f"{path}: {where} = '{code}' is not an ISO 15924 script code; use a four-letter code such "
+                          "as 'Latn', 'Cyrl', 'Arab' or 'Aran' (the registry's list is in pycountry.scripts).")
+
+
 def _check_codec(name: str, where: str, path: Path) -> None:
     import codecs
     try:
@@ -311,9 +323,7 @@ def _check_language(corpus: CorpusSpec, path: Path) -> None:
     if not is_valid_language_tag(corpus.language):
         raise RecipeError(f"{path}: [corpus] key 'language' = '{corpus.language}' is not a valid BCP 47 tag; "
                           "use e.g. 'qxk' or 'qxk-Latn' (local-use codes are qaa-qtz).")
-    if not (len(corpus.target_script) == 4 and corpus.target_script.isalpha()):
-        raise RecipeError(f"{path}: [corpus] key 'target_script' = '{corpus.target_script}' is not an ISO 15924 code; "
-                          "use a four-letter code such as 'Latn' or 'Cyrl'.")
+    _check_script(corpus.target_script, "[corpus] key 'target_script'", path)
 
 
 def is_valid_language_tag(tag: str) -> bool:

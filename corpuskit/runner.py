@@ -163,6 +163,22 @@ def _check_partition(stage_name: str, key: str, n_in: int, segs_in: int, docs_ou
                         f"segments {segs_in} -> {segs_out} + {removed_segs} removed); this is a bug, please report it.")
 
 
+WRONG_SCRIPT_SHARE = 0.9    # a stage that removes this share of segments for their script stops the run
+
+
+def _check_script_removals(recipe: Recipe, report: StageReport) -> None:
+    """Nearly every segment removed for being in another script means the recipe's target script is
+    not the script of the text: stop with the script found instead of finishing an empty corpus."""
+    counts = report.counts
+    segments = sum(n for k, n in counts.removed.items() if k.startswith("segment:") and "script" in k)
+    documents = sum(n for k, n in counts.removed.items() if k.startswith("document:") and "script" in k)
+    share = max(segments / counts.segs_in if counts.segs_in else 0.0, documents / counts.docs_in if counts.docs_in else 0.0)
+    if counts.segs_in >= 20 and share >= WRONG_SCRIPT_SHARE:
+        raise RecipeError(f"{recipe.path}: stage '{report.name}' removed {share:.0%} of the text as not written in the "
+                          f"target script {recipe.corpus.target_script}; set [corpus] target_script to the script the "
+                          "text is written in (the script inventory of a run with --until script shows it).")
+
+
 # -- the runner ----------------------------------------------------------------------------
 
 class Runner:
@@ -211,6 +227,7 @@ class Runner:
             execute = not only or only == name
             if name in MAP_STAGES:
                 parts = self._map_stage(name, stage_in, parts, reports, execute)
+                _check_script_removals(self.recipe, reports[-1])
             elif name in GLOBAL_STAGES:
                 parts = self._global_stage(name, stage_in, parts, reports, execute)
             elif name == "export":

@@ -24,7 +24,25 @@ def validate(recipe) -> list[str]:
     notes += _seeds(recipe)
     _answers(recipe)
     notes += _csv_headers(recipe)
+    notes += _script_notes(recipe)
     return notes
+
+
+def _script_notes(recipe) -> list[str]:
+    """A target script Unicode encodes no characters for; letters outside the target script."""
+    import regex
+    from .scripts import unicode_scripts
+    target = recipe.corpus.target_script
+    scripts = unicode_scripts(target)
+    if not scripts:
+        return [f"[corpus] target_script = '{target}': Unicode encodes no characters for this script, so no text can "
+                "be in it; check the code"]
+    outside = [c for c in recipe.corpus.letters if c.isalpha()
+               and not any(regex.match(r"\p{scx=%s}" % s, c) for s in scripts)]
+    if outside:
+        return [f"[corpus] letters has {len(outside)} letters outside the target script {target} "
+                f"({''.join(outside[:10])}); check letters and target_script"]
+    return []
 
 
 def _exists(recipe, value: str, key: str) -> Path:
@@ -38,13 +56,14 @@ def _tables(recipe) -> None:
     from . import variants_table as vt
     from .discovery import load_costs
     from .stages import transliterate as translit
+    from .stages.script import same_script
 
     for label, value in recipe.stages["script"].tables.items():
         translit.load_table(_exists(recipe, value, f"[stages.script] tables.{label}"))
     for s in recipe.sources:
         if s.transliterate:
             translit.load_table(_exists(recipe, s.transliterate, f"[[sources]] id = '{s.id}' key 'transliterate'"))
-        elif s.script and s.script != recipe.corpus.target_script and s.script not in recipe.stages["script"].tables:
+        elif s.script and not same_script(s.script, recipe.corpus.target_script) and s.script not in recipe.stages["script"].tables:
             raise RecipeError(f"{recipe.path}: [[sources]] id = '{s.id}' is written in {s.script}, not the target script "
                               f"{recipe.corpus.target_script}, and [stages.script] tables has no {s.script} table; add "
                               f"tables = {{ {s.script} = 'tables/....tsv' }}, or give the source a transliterate table.")

@@ -105,6 +105,13 @@ def tokens(text: str) -> list[str]:
     return [t for t in regex.split(r"(?w)\b", text) if t]
 
 
+_JOINERS = "\N{ZERO WIDTH NON-JOINER}\N{ZERO WIDTH JOINER}"
+
+
+def _drops_joiner(token: str, canonical: str) -> bool:
+    return any(j in token and j not in canonical for j in _JOINERS)
+
+
 def match_case(source: str, target: str) -> str:
     """Give ``target`` the casing pattern of ``source`` (lower, Capitalised or UPPER)."""
     if source.isupper() and len(source) > 1:
@@ -142,6 +149,8 @@ class Mapper:
         if not _WORD.search(tok) or low in self.protected:
             return tok, None
         for e in self._by_variant.get(low, ()):
+            if _drops_joiner(tok, e.canonical):   # a joiner is spelling, never removed by a variant rule
+                continue
             if self._applies(e.scope, dialect, source):
                 return match_case(tok, e.canonical), f"table:{e.variant}→{e.canonical}"
         for r, pat in self._compiled:

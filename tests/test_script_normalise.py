@@ -44,8 +44,16 @@ def test_apostrophe_is_a_per_language_choice(choice, expected):
 
 
 def test_quotes_dashes_digits_and_spaces():
-    text, _ = normalise_text("\u201cKama\u201d \u2010 \u0663\u0664  tabu\u00a0nɔ", Params())
+    text, _ = normalise_text("\u201cKama\u201d \u2010 \u0663\u0664  tabu\u00a0nɔ", Params(digits="ascii"))
     assert text == '"Kama" - 34 tabu nɔ'
+    # native digits are kept by default
+    assert normalise_text("\u0663\u0664 \u06f4\u06f5 \u0e54 \u09ea", Params())[0] == "\u0663\u0664 \u06f4\u06f5 \u0e54 \u09ea"
+
+
+def test_persian_letter_variants():
+    # Arabic yeh and kaf inside Persian text become the Persian letters when the recipe asks
+    text, steps = normalise_text("\u0643\u062a\u0627\u0628 \u0639\u0644\u064a", Params(letter_variants="persian"))
+    assert text == "\u06a9\u062a\u0627\u0628 \u0639\u0644\u06cc" and "letter-variants" in steps
 
 
 def test_mojibake_is_repaired_and_named():

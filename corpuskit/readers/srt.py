@@ -8,7 +8,7 @@ from typing import Iterator
 from ..ledger import LedgerRow
 from ..config import Checked, param
 from ._decode import TextFile
-from .webvtt import blocks, cue_text
+from .webvtt import blocks, cue_text, documents
 
 TIMING = re.compile(r"^\s*(\d{1,2}:\d{2}:\d{2}[,.]\d{1,3})\s*-->\s*(\d{1,2}:\d{2}:\d{2}[,.]\d{1,3})")
 
@@ -16,6 +16,8 @@ TIMING = re.compile(r"^\s*(\d{1,2}:\d{2}:\d{2}[,.]\d{1,3})\s*-->\s*(\d{1,2}:\d{2
 @dataclass(frozen=True)
 class Options(Checked):
     keep_tags: bool = param(False, help="keep <i>, <b> and font tags in the text")
+    minutes: float = param(0.0, low=0, high=1440, help="one document per this many minutes of cues (0: one per file), "
+                                                      "so that train, dev and test can each draw from a recording")
 
 
 def _seconds(ts: str) -> float:
@@ -39,5 +41,4 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
             segments.append(text)
             cues.append({"line": block[0][0], "id": block[0][1].strip().lstrip("\ufeff") if timing_at else None,
                          "start": _seconds(m.group(1)), "end": _seconds(m.group(2)), "speaker": speaker})
-    if segments:
-        yield {"key": "1", "segments": segments, "meta": {"file": tf.rel, "cues": cues}}
+    yield from documents(segments, cues, tf.rel, opts.minutes)

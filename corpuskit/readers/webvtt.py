@@ -25,6 +25,24 @@ TAG = re.compile(r"</?[a-z0-9.]+(?:[ \t][^>]*)?>|<\d{2}:[^>]*>", re.I)
 @dataclass(frozen=True)
 class Options(Checked):
     keep_tags: bool = param(False, help="keep cue markup tags in the text")
+    minutes: float = param(0.0, low=0, high=1440, help="one document per this many minutes of cues (0: one per file), "
+                                                      "so that train, dev and test can each draw from a recording")
+
+
+def documents(segments: list[str], cues: list[dict], rel: str, minutes: float):
+    """The cues of one file as documents: the whole file, or windows of ``minutes`` by cue start."""
+    if not segments:
+        return
+    if not minutes:
+        yield {"key": "1", "segments": segments, "meta": {"file": rel, "cues": cues}}
+        return
+    window = minutes * 60
+    groups: dict[int, list[int]] = {}
+    for i, cue in enumerate(cues):
+        groups.setdefault(int(cue["start"] // window), []).append(i)
+    for w, idx in sorted(groups.items()):
+        yield {"key": f"1@{w}", "segments": [segments[i] for i in idx],
+               "meta": {"file": rel, "cues": [cues[i] for i in idx], "window_minutes": [w * minutes, (w + 1) * minutes]}}
 
 
 def _seconds(ts: str) -> float:
@@ -85,5 +103,4 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
         segments.append(text)
         cues.append({"line": block[0][0], "id": cue_id, "start": _seconds(m.group(1)),
                      "end": _seconds(m.group(2)), "speaker": speaker})
-    if segments:
-        yield {"key": "1", "segments": segments, "meta": {"file": tf.rel, "cues": cues}}
+    yield from documents(segments, cues, tf.rel, opts.minutes)

@@ -12,13 +12,12 @@ import io
 from collections import Counter, defaultdict
 from pathlib import Path
 
-import regex
 
 from ..sheets import csv_text as _csv, neutralise_cell
+from ..words import words as split_words
 from ..storage import atomic_write_text
 from .stats import effective_number, heaps_fit, imbalance_ratio, jaccard, shannon_entropy, temperature_weights
 
-WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}ʼ'’-]+")
 AXES = ("dialect", "source", "medium", "script", "contributor")
 TYPE_AXES = ("dialect", "source", "medium", "script")
 
@@ -28,14 +27,15 @@ class Accumulator:
     which each dialect's types first appear (type-token growth).  Filled document by document
     (``add``) in one partition, then partitions are combined in order (``state``, ``merge``)."""
 
-    def __init__(self):
+    def __init__(self, language: str = ""):
+        self.language = language
         self.rows = {a: defaultdict(Counter) for a in AXES}
         self.types = {a: defaultdict(set) for a in TYPE_AXES}
         self.firsts: dict[str, list[int]] = defaultdict(list)    # dialect -> token positions of new types
         self._new_words: dict[str, list] = defaultdict(list)      # dialect -> [position, word] (for state)
 
     def add(self, doc: dict) -> None:
-        words = [w.casefold() for s in doc["segments"] for w in WORD.findall(s)]
+        words = [w.casefold() for s in doc["segments"] for w in split_words(s, self.language)]
         d = doc.get("dialect") or "unknown"
         seen, start = self.types["dialect"][d], self.rows["dialect"][d]["words"]
         for k, w in enumerate(words):
@@ -105,6 +105,23 @@ class Accumulator:
         return out
 
 
+_GRAPHEME = None
+
+
+def _context(text: str, at: int, width: int = 15) -> str:
+    """About ``width`` characters either side of position ``at``, cut between grapheme clusters."""
+    global _GRAPHEME
+    if _GRAPHEME is None:
+        import regex
+        _GRAPHEME = regex.compile(r"\X")
+    lo = max(0, at - width - 8)
+    window = text[lo:at + width + 8]
+    bounds = [lo + m.start() for m in _GRAPHEME.finditer(window)] + [lo + len(window)]
+    start = max([b for b in bounds if b <= max(0, at - width)], default=lo)
+    end = min([b for b in bounds if b >= min(len(text), at + width)], default=lo + len(window))
+    return text[start:end]
+
+
 class ScriptInventory:
     """Characters by script per source and dialect, with example contexts for unexpected ones."""
 
@@ -115,15 +132,18 @@ class ScriptInventory:
     def add(self, doc: dict, examples: bool = True) -> None:
         """Count the document's characters; with ``examples`` False (a source that may not be
         redistributed) its text gives no example contexts."""
+        from ..pii import PLACEHOLDER
         from ..stages.script import char_script
         for seg in doc["segments"]:
+            if "<" in seg:
+                seg = PLACEHOLDER.sub(" ", seg)      # <PHONE> is the pipeline's, not the text's
             for i, ch in enumerate(seg):
                 if ch.isspace():
                     continue
                 key = (doc["source"], doc.get("dialect") or "unknown", char_script(ch), ch)
                 self.chars[key] += 1
                 if key not in self.examples:
-                    self.examples[key] = seg[max(0, i - 15):i + 15] if examples else "(restricted source)"
+                    self.examples[key] = _context(seg, i) if examples else "(restricted source)"
 
     def state(self) -> list:
         return [[*key, n, self.examples[key]] for key, n in sorted(self.chars.items())]

@@ -31,7 +31,7 @@ from .split import SPLITS
 __all__ = ["PieceSettings", "LedgerSettings", "document_piece_task", "ledger_piece_task", "LedgerSummary",
            "ReviewPool", "SampleMerger", "shard_groups", "join_sections", "read_section", "DESTINATIONS"]
 
-VERSION = "2"
+VERSION = "3"
 DESTINATIONS = ("public", "restricted") + SPLITS
 STAGE = "export"
 
@@ -45,6 +45,7 @@ class PieceSettings:
     ledger: "LedgerSettings"
     secret: str = ""                # the pseudonym secret (hex); empty: names are kept
     named_as: tuple = ()            # (source, the team name the recipe gives it, keeps real names)
+    language: str = ""              # BCP 47 tag, for word segmentation
 
 
 @dataclass(frozen=True)
@@ -97,7 +98,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
     docs = cache.read_docs(in_stage, key)
     lines: dict[str, list[str]] = defaultdict(list)
     records: dict[str, list[str]] = defaultdict(list)
-    stats, inventory = balance.Accumulator(), balance.ScriptInventory()
+    stats, inventory = balance.Accumulator(settings.language), balance.ScriptInventory()
     review = ReviewPool(settings.review_threshold, settings.review_size)
     samples: dict[str, list[tuple[int, str]]] = defaultdict(list)
     by_source: dict[str, Counter] = defaultdict(Counter)
@@ -142,6 +143,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
         if where == "restricted":
             continue
         split, dialect = d["split"] or "train", d.get("dialect") or "unknown"
+        by_source[d["source"]][f"split:{split}"] += 1
         cell = split_counts[(dialect, split)]
         cell[0] += 1
         cell[1] += len(d["segments"])

@@ -104,6 +104,38 @@ def source_counts(recipe, by_source: dict[str, Counter]) -> list[dict]:
     return rows
 
 
+def one_split_sources(by_source: dict[str, Counter]) -> list[str]:
+    """Public sources whose documents all went to one split while others reach several: typically
+    a source that is one long document (a recording, a chat export) with no unit to divide it."""
+    splits = {sid: {k[6:] for k, v in c.items() if k.startswith("split:") and v} for sid, c in by_source.items()}
+    used = set().union(*splits.values()) if splits else set()
+    if len(used) < 2:
+        return []
+    return [f"source '{sid}': all {by_source[sid][f'split:{next(iter(s))}']} of its documents are in {next(iter(s))}; "
+            "the other splits have none of it (give its reader a unit, e.g. options.minutes for subtitles)"
+            for sid, s in sorted(splits.items()) if len(s) == 1]
+
+
+def _orthography(rep: Path, inventory, recipe) -> list[str]:
+    """With [corpus] letters set: letters outside the orthography per source (reports/orthography.csv),
+    and a warning for each source where they pass 0.5% of its letters."""
+    if not recipe.corpus.letters:
+        return []
+    allowed = set(recipe.corpus.letters.lower())
+    rows, totals, outside = [], Counter(), Counter()
+    for (source, dialect, script, ch), n in sorted(inventory.chars.items()):
+        if not ch.isalpha():
+            continue
+        totals[source] += n
+        if ch.lower() not in allowed and unicodedata.normalize("NFD", ch.lower())[0] not in allowed:
+            outside[source] += n
+            rows.append({"source": source, "dialect": dialect, "script": script, "letter": ch,
+                         "code_point": f"U+{ord(ch):04X}", "count": n})
+    atomic_write_text(rep / "orthography.csv", csv_text(rows, ["source", "dialect", "script", "letter", "code_point", "count"]))
+    return [f"source '{s}': {n} of {totals[s]} letters are outside [corpus] letters (reports/orthography.csv)"
+            for s, n in sorted(outside.items()) if n > 0.005 * totals[s]]
+
+
 def split_sizes(cells: dict[tuple[str, str], list[int]]) -> list[dict]:
     """Documents and segments per dialect and split, with each split's share of the dialect."""
     totals = Counter()
@@ -176,6 +208,8 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "variants.csv", csv_text(variants_report(stats.types["dialect"], variant_rewrites),
                                                  ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
+    runner.warnings.extend(one_split_sources(by_source))
+    runner.warnings.extend(_orthography(rep, script_inventory, recipe))
     atomic_write_text(rep / "sources.csv", csv_text(source_rows, SOURCE_COLUMNS))
     translit_rows = transliteration_report(recipe, round_trip)
     if translit_rows:
@@ -304,7 +338,8 @@ def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[st
     settings = PieceSettings(recipe.stages["export"].restricted, _langid_threshold(runner),
                              recipe.stages["langid"].review_size, SAMPLE_LINES, ledger_settings,
                              runner.people_secret.hex() if runner.people_secret else "",
-                             tuple((s.id, s.contributor or None, s.attribution) for s in recipe.sources))
+                             tuple((s.id, s.contributor or None, s.attribution) for s in recipe.sources),
+                             recipe.corpus.language)
     doc_names = [f"doc-{stable_hash(PIECES_VERSION, VERSION, p.key, settings)}" for p in parts]
     ledger_pieces = [(stage, [f"ledger-{stable_hash(PIECES_VERSION, stage, key, ledger_settings)}"
                               for key in runner.last_keys.get(stage, [])])
@@ -356,7 +391,7 @@ class Merged:
 def merge_pieces(runner, doc_pieces: list[str], ledger_pieces: list[tuple[str, list[str]]]) -> Merged:
     from ..reports import balance
     recipe, cache = runner.recipe, runner.cache
-    m = Merged(balance.Accumulator(), balance.ScriptInventory(), {s.id: Counter() for s in recipe.sources},
+    m = Merged(balance.Accumulator(recipe.corpus.language), balance.ScriptInventory(), {s.id: Counter() for s in recipe.sources},
                ReviewPool(_langid_threshold(runner), recipe.stages["langid"].review_size),
                defaultdict(lambda: [0, 0]), SampleMerger(SAMPLE_LINES), LedgerSummary(), Counts(), [])
     for stage, names in ledger_pieces:
@@ -457,7 +492,7 @@ def _tokenizer(out: Path, cache, params: Params, recipe, train_lines: list[str],
         used, rows = cache.get_json("export", f"tokenizer-{key}.json")
     else:
         model, used = tok.train_tokenizer(train_lines, params.vocab_size, params.model_type, recipe.corpus.letters)
-        rows = tok.dialect_report(model, eval_lines)
+        rows = tok.dialect_report(model, eval_lines, recipe.corpus.language)
         cache.put_blob("export", f"tokenizer-{key}.model", model)
         # (not put_json: that sorts keys, and the rows' key order is the CSV's column order)
         cache.put_blob("export", f"tokenizer-{key}.json", json.dumps([used, rows], ensure_ascii=False).encode("utf-8"))

@@ -39,7 +39,7 @@ from ..storage import file_sha256, stable_hash
 from ..variants_table import restore_cell
 from ._base import keep_segments
 
-VERSION = "3"
+VERSION = "4"
 UND = "und"
 LETTER = regex.compile(r"\p{L}")
 URL = regex.compile(r"https?://\S+|www\.\S+|\S+@\S+\.\w+")
@@ -376,7 +376,8 @@ def build_context(recipe, params, cache, key):
         cache.put_json("langid", report_name, report)
     report = cache.get_json("langid", report_name)
     _require_target(recipe, params, report)
-    scripts = list(params.target_scripts) or [recipe.corpus.target_script]
+    from ..scripts import unicode_scripts
+    scripts = [u for s in (list(params.target_scripts) or [recipe.corpus.target_script]) for u in unicode_scripts(s) or (s,)]
     scripts += [k for k in recipe.stages["script"].tables]
     return {"model": [str(p) for p in fold_paths], "threshold": report["threshold"]["value"],
             "language": recipe.corpus.language,
@@ -568,7 +569,8 @@ def apply(docs: list[dict], params: Params, ctx: dict):
         valid = [s for s, lab in zip(scores, labels) if s == s and lab == language]
         doc["langid_score"] = round(sum(valid) / len(valid), 4) if valid else None
         if share < params.min_share or (determined and share == 0.0):
-            row = remove_document("langid", doc, "not-target-language",
+            scripts_only = all(lab.startswith("script:") for lab in determined)
+            row = remove_document("langid", doc, "wrong-script" if scripts_only else "not-target-language",
                                   f"target-language share {share:.2f}" + (f" < {params.min_share}" if share else "")
                                   + "; labels " + ", ".join(f"{k}={v}" for k, v in sorted(Counter(labels).items())),
                                   keep_text=True)

@@ -27,7 +27,7 @@ from ..storage import stable_hash
 from ..config import Checked, param
 from ._base import drop_empty
 
-VERSION = "3"
+VERSION = "4"
 
 
 @dataclass(frozen=True)
@@ -36,7 +36,11 @@ class Params(Checked):
     repair_mojibake: bool = param(True, help="repair text decoded with the wrong code page (ftfy)")
     quotes: str = param("ascii", choices=("keep", "ascii"), help="curly and angle quotes")
     dashes: str = param("hyphen", choices=("keep", "hyphen"), help="hyphen-like dashes and minus signs")
-    digits: str = param("ascii", choices=("keep", "ascii"), help="decimal digits of other scripts")
+    digits: str = param("keep", choices=("keep", "ascii"), help="decimal digits of other scripts (Persian ۴, Thai ๔, "
+                                                               "Bengali ৪): kept as written, or turned into ASCII 0-9")
+    letter_variants: str = param("", choices=("", "persian"), help="a language's letter-variant table: 'persian' writes "
+                                                                   "Arabic yeh and kaf (ي ك) and alef maksura as the "
+                                                                   "Persian letters (ی ک)")
 
 
 def context_key(recipe, params) -> str:
@@ -73,6 +77,12 @@ DASHES = str.maketrans({"\N{HYPHEN}": "-", "\N{NON-BREAKING HYPHEN}": "-", "\N{M
                         "\N{FIGURE DASH}": "-"})
 _HAS_QUOTE = regex.compile("[%s]" % regex.escape("".join(chr(c) for c in QUOTES)))
 _HAS_DASH = regex.compile("[%s]" % regex.escape("".join(chr(c) for c in DASHES)))
+# Per-language letter-variant tables.  Persian: Arabic yeh U+064A and alef maksura U+0649 are written
+# as Farsi yeh U+06CC, Arabic kaf U+0643 as keheh U+06A9 (the Persian orthography's letters, as the
+# Academy of Persian Language and Literature's spelling rules prescribe; from memory).
+LETTER_VARIANTS = {"persian": str.maketrans({"\N{ARABIC LETTER YEH}": "\N{ARABIC LETTER FARSI YEH}",
+                                              "\N{ARABIC LETTER ALEF MAKSURA}": "\N{ARABIC LETTER FARSI YEH}",
+                                              "\N{ARABIC LETTER KAF}": "\N{ARABIC LETTER KEHEH}"})}
 _OTHER_DIGIT = regex.compile(r"[\p{Nd}--[0-9]]", regex.V1)
 
 
@@ -221,6 +231,8 @@ def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple
             step("dashes", outside(text, lambda t: t.translate(DASHES), protected))
     if params.digits == "ascii":
         step("digits", outside(text, digits, protected))
+    if params.letter_variants:
+        step("letter-variants", text.translate(LETTER_VARIANTS[params.letter_variants]))
     step("whitespace", whitespace(text))
     return text, steps
 

@@ -15,11 +15,12 @@ import regex
 
 from ..ledger import LedgerRow, remove_document
 from ..pii import PLACEHOLDER, scrub
+from ..scripts import unicode_scripts
 from ..config import Checked, param
 from ..storage import stable_hash
 from ._base import drop_empty, keep_segments
 
-VERSION = "4"
+VERSION = "5"
 
 
 @dataclass(frozen=True)
@@ -39,7 +40,9 @@ class Params(Checked):
 
 
 URL = regex.compile(r"https?://\S+|www\.\S+")
-EMOJI = regex.compile(r"[\p{Extended_Pictographic}\p{Emoji_Modifier}\N{VARIATION SELECTOR-16}\N{ZERO WIDTH JOINER}]")
+# Pictographs and skin-tone modifiers; not the zero-width joiner, which Indic and Arabic scripts
+# use inside words (it only glues emoji together, and is counted with them).
+EMOJI = regex.compile(r"[\p{Extended_Pictographic}\p{Emoji_Modifier}]")
 
 
 @lru_cache(maxsize=8)
@@ -73,7 +76,7 @@ def segment_problem(text: str, params: Params, script: str, target: str) -> tupl
             return f"too-many-{name}", f"{share:.2f} > {limit}"
     letters = regex.findall(r"\p{L}", bare)
     if letters:
-        in_script = len(regex.findall(r"\p{scx=%s}" % target, "".join(letters)))
+        in_script = len(_in_script(target).findall("".join(letters)))
         if in_script / len(letters) < params.min_script_share:
             return "wrong-script", f"{in_script / len(letters):.2f} of letters in {target} < {params.min_script_share}"
     return None
@@ -118,3 +121,10 @@ def context_key(recipe, params) -> str:
 
 def build_context(recipe, params, cache, key):
     return {"target_script": recipe.corpus.target_script, "regions": list(recipe.corpus.regions)}
+
+
+@lru_cache(maxsize=16)
+def _in_script(target: str):
+    """Letters written in the target script (an ISO 15924 code: any of the Unicode scripts it uses)."""
+    scripts = unicode_scripts(target) or ("Zzzz",)
+    return regex.compile("[%s]" % "".join(r"\p{scx=%s}" % t for t in scripts))

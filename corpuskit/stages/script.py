@@ -21,7 +21,13 @@ import regex
 from ..ledger import LedgerRow
 from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
+from ..scripts import unicode_scripts
 from . import transliterate as translit
+
+
+def same_script(a: str, b: str) -> bool:
+    """Whether two ISO 15924 codes are written with the same Unicode scripts (Aran and Arab are)."""
+    return a == b or bool(set(unicode_scripts(a)) & set(unicode_scripts(b)))
 
 VERSION = "4"
 COMMON, INHERITED, UNKNOWN = "Zyyy", "Zinh", "Zzzz"
@@ -41,7 +47,7 @@ def source_tables(recipe, params) -> dict[str, str]:
     for s in recipe.sources:
         if s.transliterate:
             out[s.id] = s.transliterate
-        elif s.script and s.script != recipe.corpus.target_script and s.script in params.tables:
+        elif s.script and not same_script(s.script, recipe.corpus.target_script) and s.script in params.tables:
             out[s.id] = params.tables[s.script]
     return out
 
@@ -58,7 +64,8 @@ def build_context(recipe, params, cache, key):
     tables = {k: translit.load_table(recipe.resolve(v, f"[stages.script] tables.{k}")) for k, v in params.tables.items()}
     by_source = {sid: translit.load_table(recipe.resolve(path, f"[[sources]] id = '{sid}' (table)"))
                  for sid, path in source_tables(recipe, params).items()}
-    return {"target": recipe.corpus.target_script, "tables": tables, "by_source": by_source,
+    return {"target": (unicode_scripts(recipe.corpus.target_script) or (recipe.corpus.target_script,))[0],
+            "tables": tables, "by_source": by_source,
             "letters": recipe.corpus.letters, "protected": list(recipe.corpus.protected_patterns)}
 
 

@@ -11,6 +11,8 @@ import io
 import re
 from collections import defaultdict
 
+from ..words import words as split_words
+
 __all__ = ["train_tokenizer", "dialect_report"]
 
 _LIMIT = re.compile(r"value <= (\d+)")
@@ -70,7 +72,7 @@ def _sentence_sized(line: str) -> list[str]:
     return [p for p in pieces if p]
 
 
-def dialect_report(model: bytes, docs_by_dialect: dict[str, list[str]]) -> list[dict]:
+def dialect_report(model: bytes, docs_by_dialect: dict[str, list[str]], language: str = "") -> list[dict]:
     """Fertility (pieces per word) and unknown-piece rate per dialect."""
     import sentencepiece as spm
 
@@ -83,7 +85,7 @@ def dialect_report(model: bytes, docs_by_dialect: dict[str, list[str]]) -> list[
             pieces += len(ids)
             unknown += sum(1 for i in ids if i == unk)
         for line in lines:
-            words += len(line.split())
+            words += len(split_words(line, language))
             chars += len(line)
         rows.append({"dialect": dialect, "lines": len(lines), "words": words, "pieces": pieces,
                      "fertility": round(pieces / words, 4) if words else None,
