@@ -1,13 +1,15 @@
-"""A small Python API for notebooks: run a recipe, load the corpus, ledger or a report table."""
+"""A small Python API for notebooks and scripts: run a recipe, load the corpus, ledger or a report table."""
 from __future__ import annotations
 
 import gzip
 import json
+import sys
 from pathlib import Path
 
 import pandas as pd
 
 from .engines import make_engine
+from .errors import RecipeError
 from .recipe import load_recipe
 from .runner import OutputLock, Runner, RunResult
 
@@ -17,31 +19,64 @@ __all__ = ["run", "load_corpus", "load_ledger", "load_report"]
 def run(recipe_path, out, engine: str = "local", workers: int | None = None, until: str | None = None,
         only: str | None = None, scheduler: str | None = None) -> RunResult:
     """Run a recipe into ``out`` and return the per-stage counts."""
+    if getattr(sys.modules.get("__main__"), "__name__", "") == "__mp_main__":
+        # A worker process is importing the user's script again (multiprocessing's forkserver and
+        # spawn do that); the call at its top level would start a second run.
+        raise RecipeError("corpuskit.run() was called while a worker process imported your script; put the call "
+                          "under `if __name__ == \"__main__\":` (or run it from a notebook or the command line).")
     recipe = load_recipe(recipe_path)
     out = Path(out)
     with OutputLock(out), make_engine(engine, workers, scheduler) as eng:
         return Runner(recipe, out, eng).run(until=until, only=only)
 
 
-def _jsonl(paths) -> pd.DataFrame:
+def _output(out) -> Path:
+    out = Path(out)
+    if not (out / "manifest.json").exists() and not (out / "corpus").is_dir():
+        raise RecipeError(f"{out}: not the output folder of a finished corpuskit run (no manifest.json, no corpus/); "
+                          "give the folder passed as --out.")
+    return out
+
+
+def _jsonl(paths, text: bool = False) -> pd.DataFrame:
     rows = []
     for p in sorted(paths):
-        with gzip.open(p, "rt", encoding="utf-8") as f:
+        with gzip.open(p, "rt", encoding="utf-8", newline="\n") as f:
             rows.extend(json.loads(line) for line in f)
-    return pd.DataFrame(rows)
+    df = pd.DataFrame(rows)
+    if text and "segments" in df:
+        df["text"] = df["segments"].map("\n".join)     # the document as plain text, one segment per line
+    return df
 
 
-def load_corpus(out, split: str | None = None, restricted: bool = False) -> pd.DataFrame:
-    out = Path(out)
+RESTRICTED_CHOICES = ("exclude", "include", "only")
+
+
+def load_corpus(out, split: str | None = None, restricted: str | bool = "exclude") -> pd.DataFrame:
+    """The kept documents as a table (a ``text`` column beside ``segments`` and the provenance).
+
+    ``split``: "train", "dev" or "test" (public documents only).  ``restricted``: which documents
+    whose consent or licence forbids redistribution come along: "exclude" (the default: the public
+    corpus), "include" (public and restricted) or "only" (restricted only; ``True`` means this too).
+    """
+    out = _output(out)
+    choice = {False: "exclude", True: "only"}.get(restricted, restricted) if isinstance(restricted, bool) else restricted
+    if choice not in RESTRICTED_CHOICES:
+        raise RecipeError(f"restricted = {restricted!r}; use one of {', '.join(RESTRICTED_CHOICES)}.")
     if split:
-        return _jsonl([out / "splits" / f"{split}.jsonl.gz"])
-    return _jsonl((out / ("restricted" if restricted else "corpus")).glob("*.jsonl.gz"))
+        return _jsonl([out / "splits" / f"{split}.jsonl.gz"], text=True)
+    folders = {"exclude": ["corpus"], "include": ["corpus", "restricted"], "only": ["restricted"]}[choice]
+    return _jsonl([p for folder in folders for p in (out / folder).glob("*.jsonl.gz")], text=True)
 
 
 def load_ledger(out) -> pd.DataFrame:
-    return _jsonl([Path(out) / "private" / "ledger.jsonl.gz"])
+    return _jsonl([_output(out) / "private" / "ledger.jsonl.gz"])
 
 
 def load_report(out, name: str) -> pd.DataFrame:
     """A CSV table from ``reports/`` by name, e.g. ``balance-dialect`` or ``duplicate-clusters``."""
-    return pd.read_csv(Path(out) / "reports" / f"{name}.csv")
+    path = _output(out) / "reports" / f"{name}.csv"
+    if not path.exists():
+        known = sorted(p.stem for p in path.parent.glob("*.csv"))
+        raise RecipeError(f"{path}: no such report; known: {', '.join(known)}.")
+    return pd.read_csv(path)

@@ -17,14 +17,26 @@ from rich.table import Table
 from .errors import CorpusError
 
 app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_show_locals=False,
+                  context_settings={"help_option_names": ["-h", "--help"]},
                   help="Turn scattered text in a mostly-spoken language into a clean, documented corpus.")
 err = Console(stderr=True)
-out = Console(width=200 if not sys.stdout.isatty() else None)
+out = Console(width=100 if not sys.stdout.isatty() else None)
+
+
+def _version(value: bool) -> None:
+    if value:
+        from . import __version__
+        out.print(f"corpuskit {__version__}", highlight=False, markup=False)
+        raise typer.Exit(0)
 
 
 @app.callback()
-def _root() -> None:
-    """corpuskit: one staged recipe from scattered sources to a documented corpus."""
+def _root(version: bool = typer.Option(False, "--version", callback=_version, is_eager=True,
+                                       help="print the version and exit")) -> None:
+    """corpuskit: one staged recipe from scattered sources to a documented corpus.
+
+    Exit codes: 0 success; 1 a run that failed on its data or a crash; 2 a mistake in the recipe or
+    the command line (the message names the key or file and the fix)."""
 
 
 def _fail(exc: CorpusError) -> None:
@@ -57,23 +69,31 @@ def _progress_factory(enabled: bool):
 
 
 def _summary(result) -> None:
+    """Counts per stage in a table that fits 80 columns, then what was removed and what was rewritten
+    (per stage, by reason), per-source counts, the conservation check; warnings come last."""
     t = Table(title="Run summary", title_justify="left")
-    for col in ("stage", "docs in", "docs out", "segs in", "segs out", "computed", "reused", "removed (reason: count)"):
-        t.add_column(col, justify="left" if col in ("stage", "removed (reason: count)") else "right")
+    for col in ("stage", "documents", "segments", "removed", "rewritten"):
+        t.add_column(col, justify="left" if col == "stage" else "right")
     for s in result.stages:
         c = s.counts
-        removed = ", ".join(f"{k.split(':', 1)[1]}: {v}" for k, v in sorted(c.removed.items()))
-        t.add_row(s.name, str(c.docs_in), str(c.docs_out), str(c.segs_in), str(c.segs_out), str(s.computed),
-                  str(s.reused), removed or "-")
+        t.add_row(s.name, f"{c.docs_in} → {c.docs_out}", f"{c.segs_in} → {c.segs_out}",
+                  str(sum(c.removed.values())), str(sum(c.rewritten.values())))
     out.print(t)
+    for title, attr in (("Removed", "removed"), ("Rewritten", "rewritten")):
+        lines = [f"  {s.name}: " + ", ".join(f"{k.split(':', 1)[1]} {v}" for k, v in sorted(getattr(s.counts, attr).items()))
+                 for s in result.stages if getattr(s.counts, attr)]
+        if lines:
+            out.print(f"{title} (reason and count):", highlight=False, markup=False)
+            for line in lines:
+                out.print(line, highlight=False, markup=False, soft_wrap=True)
     sources = (result.manifest or {}).get("sources") or []
     if sources:
         ts = Table(title="Sources", title_justify="left")
-        for col in ("source", "medium", "dialect", "output", "documents in", "documents kept", "segments in", "segments kept"):
-            ts.add_column(col, justify="right" if col.startswith(("documents", "segments")) else "left")
+        for col in ("source", "output", "documents in → kept", "segments in → kept"):
+            ts.add_column(col, justify="left" if col in ("source", "output") else "right")
         for row in sources:
-            ts.add_row(*(str(row[c]) for c in ("source", "medium", "dialect", "output", "documents in", "documents kept",
-                                               "segments in", "segments kept")))
+            ts.add_row(row["source"], row["output"], f"{row['documents in']} → {row['documents kept']}",
+                       f"{row['segments in']} → {row['segments kept']}")
         out.print(ts)
     if result.conservation:
         cd, cs = result.conservation["documents"], result.conservation["segments"]
@@ -81,7 +101,6 @@ def _summary(result) -> None:
         out.print(f"Conservation: documents {cd['in']} = {cd['kept']} kept + {cd['removed']} removed; "
                   f"segments {cs['in']} = {cs['kept']} kept + {cs['removed']} removed: "
                   + ("[green]holds[/]" if ok else "[red]FAILS[/]"), highlight=False)
-    _warnings(result.warnings)
 
 
 def _warnings(warnings: list[str], limit: int = 20) -> None:
@@ -125,6 +144,7 @@ def _run(recipe: Path, out_dir: Path, engine: str, workers: Optional[int], sched
     _summary(result)
     if result.manifest:
         _where(result)
+    _warnings(result.warnings)      # last, where they are seen
 
 
 @app.command()
@@ -283,10 +303,19 @@ def langid_evaluate(recipe: Path = typer.Argument(...),
         report = cache.get_json("langid", ctx["report"])
     except CorpusError as exc:
         _fail(exc)
-    out.print(f"accuracy {report.get('accuracy', 0):.4f}, macro-F1 {report.get('macro_f1', 0):.4f}, "
-              f"threshold {report['threshold']}", highlight=False)
+    th = report["threshold"]
+    out.print(f"{report.get('folds')}-fold cross-validation on {report.get('examples')} seed lines: accuracy "
+              f"{report.get('accuracy', 0):.3f}, macro-F1 {report.get('macro_f1', 0):.3f}", highlight=False, markup=False)
+    out.print(f"threshold on P(target) {th['value']:.3f}: precision {th.get('precision') or 0:.3f} (lower bound "
+              f"{th.get('precision_lower_bound') or 0:.3f}), recall {th.get('recall') or 0:.3f}, target "
+              f"{report.get('target_precision')}: {'reached' if th.get('reached') else 'NOT reached'}",
+              highlight=False, markup=False)
+    t = Table(title="Per label", title_justify="left")
+    for col in ("label", "precision", "recall", "F1", "seed lines"):
+        t.add_column(col, justify="left" if col == "label" else "right")
     for lab, v in sorted(report.get("per_class", {}).items()):
-        out.print(f"  {lab:<16} P {v['precision']:.3f}  R {v['recall']:.3f}  F1 {v['f1']:.3f}  n {v['support']}", highlight=False, markup=False)
+        t.add_row(lab, f"{v['precision']:.3f}", f"{v['recall']:.3f}", f"{v['f1']:.3f}", str(v["support"]))
+    out.print(t)
 
 
 variants_app = typer.Typer(help="Spelling variants: propose candidates, accept a reviewed sheet.", no_args_is_help=True)
@@ -332,6 +361,9 @@ def main() -> None:
     except KeyboardInterrupt:  # pragma: no cover
         err.print("interrupted; finished partitions are kept and the next run resumes.")
         sys.exit(130)
+    except CorpusError as exc:   # a user's mistake raised outside a command's own handling
+        err.print(f"[bold red]error:[/] {escape(str(exc))}", highlight=False, soft_wrap=True)
+        sys.exit(exc.exit_code)
 
 
 

@@ -248,15 +248,24 @@ def write_report(folder: Path, acc: Accumulator, params, recipe) -> dict:
         oov.append({"dialect": a, "types": len(vocab[a]),
                     "oov_rate_against_rest": round(len(vocab[a] - rest) / len(vocab[a]), 4) if vocab[a] else 0.0})
     sizes = {r["dialect"]: r["words"] for r in tables["dialect"]}
-    q = temperature_weights(sizes, params.alpha)
     total = sum(sizes.values())
+    # Documents without a dialect are no dialect: they keep their natural share, and the temperature
+    # is applied among the dialects to the rest.
+    unknown = sizes.get("unknown", 0)
+    known = {d: n for d, n in sizes.items() if d != "unknown"}
+    q = {d: w * (1 - unknown / total) for d, w in temperature_weights(known, params.alpha).items()} if total else {}
+    if "unknown" in sizes:
+        q["unknown"] = unknown / total if total else 0.0
     sampling = [{"dialect": d, "words": sizes[d], "natural_share": round(sizes[d] / total, 4) if total else 0,
                  "sampling_share": round(q[d], 4), "expected_words": round(q[d] * total),
                  "weight_per_word": round(q[d] / (sizes[d] / total), 4) if sizes[d] else 0} for d in sorted(sizes)]
     warnings = [f"dialect '{r['dialect']}' has {r['words_share']:.1%} of the words, under the floor {params.dialect_floor:.0%}"
-                for r in tables["dialect"] if r["words_share"] < params.dialect_floor]
+                for r in tables["dialect"] if r["words_share"] < params.dialect_floor and r["dialect"] != "unknown"]
     warnings += [f"medium '{r['medium']}' has {r['words_share']:.1%} of the words, under the floor {params.medium_floor:.0%}"
                  for r in tables["medium"] if r["words_share"] < params.medium_floor]
+    if unknown:
+        warnings.append(f"{unknown / total:.1%} of the words come from documents without a dialect; they keep their "
+                        "natural share in the sampling weights (give the source or its rows a dialect)")
     atomic_write_text(folder / "balance-heaps.csv", _csv(heaps))
     atomic_write_text(folder / "balance-overlap.csv", _csv([{"dialect": a, **overlap[a]} for a in names]))
     atomic_write_text(folder / "balance-oov.csv", _csv(oov))

@@ -195,6 +195,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     # Reports.
     rep = out / "reports"
     bal = balance.write_report(rep, stats, params, recipe)
+    runner.warnings.extend(f"balance: {w}" for w in bal["warnings"])
     atomic_write_text(rep / "script-inventory.csv", script_inventory.csv())
     removal_rows = []
     for s in reports + [type("R", (), {"name": "export", "counts": counts})()]:
