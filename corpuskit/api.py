@@ -19,15 +19,24 @@ __all__ = ["run", "load_corpus", "load_ledger", "load_report"]
 def run(recipe_path, out, engine: str = "local", workers: int | None = None, until: str | None = None,
         only: str | None = None, scheduler: str | None = None) -> RunResult:
     """Run a recipe into ``out`` and return the per-stage counts."""
-    if getattr(sys.modules.get("__main__"), "__name__", "") == "__mp_main__":
-        # A worker process is importing the user's script again (multiprocessing's forkserver and
-        # spawn do that); the call at its top level would start a second run.
+    if _reimported_script():
         raise RecipeError("corpuskit.run() was called while a worker process imported your script; put the call "
                           "under `if __name__ == \"__main__\":` (or run it from a notebook or the command line).")
     recipe = load_recipe(recipe_path)
     out = Path(out)
     with OutputLock(out), make_engine(engine, workers, scheduler) as eng:
         return Runner(recipe, out, eng).run(until=until, only=only)
+
+
+def _reimported_script() -> bool:
+    """Whether this call comes from a script that a worker process is importing again
+    (multiprocessing's forkserver and spawn run a script's top level as ``__mp_main__``)."""
+    frame = sys._getframe(1)
+    while frame is not None:
+        if frame.f_globals.get("__name__") == "__mp_main__":
+            return True
+        frame = frame.f_back
+    return False
 
 
 def _output(out) -> Path:

@@ -18,7 +18,9 @@ from .errors import CorpusError
 
 app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_show_locals=False,
                   context_settings={"help_option_names": ["-h", "--help"]},
-                  help="Turn scattered text in a mostly-spoken language into a clean, documented corpus.")
+                  help="Turn scattered text in a mostly-spoken language into a clean, documented corpus.\n\n"
+                       "Exit codes: 0 success; 1 a run that failed on its data, or a crash; 2 a mistake in the recipe "
+                       "or the command line (the message names the key or file and the fix).")
 err = Console(stderr=True)
 out = Console(width=100 if not sys.stdout.isatty() else None)
 

@@ -13,6 +13,7 @@ import ctypes
 import multiprocessing as mp
 import os
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Callable, Iterator, Sequence
 
 __all__ = ["LocalEngine", "trim_memory"]
@@ -84,6 +85,12 @@ class LocalEngine:
         try:
             for fut in as_completed(futures):
                 yield futures[fut], fut.result()
+        except BrokenProcessPool:
+            self._pool = None
+            from ..errors import DataError
+            raise DataError("a worker process stopped before finishing its task (out of memory, killed, or it failed "
+                            "while starting: a script that calls corpuskit.run() must do so under "
+                            "`if __name__ == \"__main__\":`); finished work is kept, run again.") from None
         except BaseException:
             for f in futures:
                 f.cancel()

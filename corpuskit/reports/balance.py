@@ -183,16 +183,25 @@ def _plots(acc: Accumulator, overlap: dict) -> list[tuple[str, str]]:
     out = []
     for axis in ("dialect", "source", "medium"):
         rows = acc.table(axis)
-        fig, ax = plt.subplots(figsize=(6.5, 0.4 * len(rows) + 1.2))
-        ax.barh([r[axis] for r in rows], [r["words"] for r in rows], color="#4477aa")
-        ax.set_xlabel("words")
-        ax.set_title(f"Words per {axis}")
-        ax.invert_yaxis()
-        out.append((f"Words per {axis}", _png(fig)))
+        fig, axes = plt.subplots(1, 2, figsize=(8, 0.4 * len(rows) + 1.4), sharey=True)
+        for ax, measure, colour in zip(axes, ("documents", "words"), ("#4477aa", "#cc6677")):
+            values = [r[measure] for r in rows]
+            total = sum(values) or 1
+            ax.barh([r[axis] for r in rows], values, color=colour)
+            for y, v in enumerate(values):
+                ax.text(v, y, f" {v / total:.0%}", va="center", fontsize=8)
+            ax.set_xlabel(measure)
+            ax.set_xlim(0, max(values + [1]) * 1.25)
+        axes[0].invert_yaxis()
+        fig.suptitle(f"Documents and words per {axis}")
+        out.append((f"Documents and words per {axis}", _png(fig)))
     fig, ax = plt.subplots(figsize=(6.5, 4))
-    for d, pts in sorted(acc.growth.items()):
-        if pts:
-            ax.plot([t for t, _ in pts], [v for _, v in pts], marker=".", label=d)
+    styles = ["-", "--", ":", "-."]
+    markers = ["o", "s", "^", "D", "v", "x"]
+    for k, (d, pts) in enumerate(sorted(acc.growth.items())):
+        if pts:   # line style and marker differ, so lines that overlap stay visible
+            ax.plot([t for t, _ in pts], [v for _, v in pts], linestyle=styles[k % len(styles)],
+                    marker=markers[k % len(markers)], markersize=4, label=d, alpha=0.85)
     ax.set_xscale("log")
     ax.set_yscale("log")
     ax.set_xlabel("tokens")
@@ -216,15 +225,79 @@ def _plots(acc: Accumulator, overlap: dict) -> list[tuple[str, str]]:
     return out
 
 
-def _html_table(rows: list[dict]) -> str:
+HEADERS = {"documents_share": "share of documents", "words_share": "share of words", "entropy_bits": "entropy (bits)",
+           "effective_number": "effective number", "imbalance_ratio": "largest / smallest", "oov_rate_against_rest":
+           "words not in other dialects", "natural_share": "natural share", "sampling_share": "sampling share",
+           "expected_words": "expected words", "weight_per_word": "weight per word", "K": "K", "beta": "β"}
+
+
+def _header(key: str) -> str:
+    return HEADERS.get(key, key.replace("_", " "))
+
+
+def _cell(key: str, value) -> str:
+    if isinstance(value, bool) or value is None:
+        return "" if value is None else ("yes" if value else "no")
+    if isinstance(value, int):
+        return f"{value:,}"
+    if isinstance(value, float):
+        if "share" in key or "rate" in key:
+            return f"{value:.1%}"
+        return f"{value:,.2f}" if abs(value) >= 10 else f"{value:.3g}"
+    return str(value)
+
+
+def _html_table(rows: list[dict], mark: set[str] | None = None) -> str:
+    """A table with readable headers and numbers; rows whose first cell is in ``mark`` are flagged."""
     if not rows:
         return "<p>none</p>"
-    head = "".join(f"<th>{html.escape(str(k))}</th>" for k in rows[0])
-    body = "".join("<tr>" + "".join(f"<td>{html.escape(str(v))}</td>" for v in r.values()) + "</tr>" for r in rows)
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    head = "".join(f"<th>{html.escape(_header(k))}</th>" for k in rows[0])
+    body = []
+    for r in rows:
+        first = str(next(iter(r.values())))
+        flag = " class='restricted' title='not for redistribution'" if mark and first in mark else ""
+        body.append(f"<tr{flag}>" + "".join(f"<td>{html.escape(_cell(k, v))}</td>" for k, v in r.items()) + "</tr>")
+    return f"<div class='scroll'><table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table></div>"
 
 
-def write_report(folder: Path, acc: Accumulator, params, recipe) -> dict:
+def _extremes(rows: list[dict], axis: str) -> str:
+    if not rows:
+        return "none"
+    big = max(rows, key=lambda r: (r["documents_share"], r["words_share"]))
+    small = min(rows, key=lambda r: (r["documents_share"], r["words_share"]))
+    text = (f"largest <b>{html.escape(big[axis])}</b> ({big['documents_share']:.0%} of documents, "
+            f"{big['words_share']:.0%} of words)")
+    if len(rows) > 1:
+        text += (f"; smallest <b>{html.escape(small[axis])}</b> ({small['documents_share']:.0%} of documents, "
+                 f"{small['words_share']:.0%} of words)")
+    return text
+
+
+def _summary(acc: Accumulator, tables: dict, measures: dict, warnings: list[str], restricted: set[str]) -> str:
+    """The one-screen summary at the top of the page."""
+    docs = sum(r["documents"] for r in tables["dialect"])
+    words = sum(r["words"] for r in tables["dialect"])
+    dia = measures["dialect"]
+    restricted_docs = sum(r["documents"] for r in tables["source"] if r["source"] in restricted)
+    reading = (f"Across dialects the corpus is as diverse as {dia['effective_number']:.1f} equally large dialects "
+               f"would be ({dia['groups']} present; entropy {dia['entropy_bits']:.2f} bits of a possible "
+               f"{max(0.0, __import__('math').log2(dia['groups'])) if dia['groups'] else 0:.2f}).")
+    items = [f"<li><b>{docs:,}</b> documents, <b>{words:,}</b> words"
+             + (f"; {restricted_docs:,} documents ({restricted_docs / docs:.0%}) from sources that may not be "
+                "redistributed" if docs and restricted_docs else "") + "</li>",
+             f"<li>Dialects: {_extremes(tables['dialect'], 'dialect')}</li>",
+             f"<li>Sources: {_extremes(tables['source'], 'source')}</li>",
+             f"<li>{reading}</li>"]
+    box = ""
+    if warnings:
+        box = ("<div class='warn'><strong>Warnings of this run</strong><ul>"
+               + "".join(f"<li>{html.escape(w)}</li>" for w in warnings) + "</ul></div>")
+    links = " · ".join(f"<a href='#{a}'>{a}</a>" for a in AXES) + " · <a href='#growth'>growth</a> · " \
+        "<a href='#sampling'>sampling</a> · <a href='#plots'>plots</a>"
+    return f"<section id='summary'><h2>Summary</h2><ul>{''.join(items)}</ul>{box}<p class='links'>{links}</p></section>"
+
+
+def write_report(folder: Path, acc: Accumulator, params, recipe, run_warnings: list[str] = ()) -> dict:
     folder.mkdir(parents=True, exist_ok=True)
     tables = {a: acc.table(a) for a in AXES}
     for a, rows in tables.items():
@@ -271,21 +344,27 @@ def write_report(folder: Path, acc: Accumulator, params, recipe) -> dict:
     atomic_write_text(folder / "balance-oov.csv", _csv(oov))
     atomic_write_text(folder / "sampling-weights.csv", _csv(sampling))
     plots = _plots(acc, overlap)
-    parts = [f"<!doctype html><html lang='en'><head><meta charset='utf-8'><title>Balance: {html.escape(recipe.corpus.name)}</title>",
-             "<style>body{font-family:sans-serif;max-width:960px;margin:2em auto;color:#222}table{border-collapse:collapse;margin:1em 0}"
-             "td,th{border:1px solid #ccc;padding:3px 8px;text-align:right}th{background:#eee}td:first-child{text-align:left}"
-             ".warn{background:#fff3cd;border:1px solid #e0c36b;padding:.5em 1em}img{max-width:100%}</style></head><body>",
-             f"<h1>Balance of the corpus “{html.escape(recipe.corpus.name)}” ({html.escape(recipe.corpus.language)})</h1>"]
-    if warnings:
-        parts.append("<div class='warn'><strong>Warnings</strong><ul>" + "".join(f"<li>{html.escape(w)}</li>" for w in warnings) + "</ul></div>")
+    restricted = {src.id for src in recipe.sources if not src.redistributable}
+    style = ("body{font-family:system-ui,sans-serif;max-width:1000px;margin:1.5em auto;padding:0 1em;color:#222;line-height:1.4}"
+             "table{border-collapse:collapse;margin:.5em 0}td,th{border:1px solid #ccc;padding:3px 8px;text-align:right}"
+             "th{background:#eee}td:first-child,th:first-child{text-align:left}.scroll{overflow-x:auto}"
+             "tr.restricted td:first-child::after{content:' (restricted)';color:#a33}"
+             ".warn{background:#fff3cd;border:1px solid #e0c36b;padding:.3em 1em;margin:1em 0}"
+             "img{max-width:100%;height:auto}.links a{margin:0 .2em}")
+    parts = [f"<!doctype html><html lang='en'><head><meta charset='utf-8'>"
+             "<meta name='viewport' content='width=device-width, initial-scale=1'>"
+             f"<title>Balance: {html.escape(recipe.corpus.name)}</title><style>{style}</style></head><body>",
+             f"<h1>Balance of the corpus “{html.escape(recipe.corpus.name)}” ({html.escape(recipe.corpus.language)})</h1>",
+             _summary(acc, tables, measures, list(run_warnings) + warnings, restricted)]
     parts.append("<h2>Diversity</h2>" + _html_table([{"over": a, **m} for a, m in measures.items()]))
     parts.append("<p>Entropy in bits over the share of words; effective number = 2<sup>H</sup>; "
-                 "imbalance ratio = largest / smallest group.</p>")
+                 "largest / smallest: the largest group's words over the smallest group's.</p>")
     for a in AXES:
-        parts.append(f"<h2>By {a}</h2>" + _html_table(tables[a]))
-    parts.append("<h2>Heaps' law per dialect (V = K·T<sup>β</sup>)</h2>" + _html_table(heaps))
-    parts.append("<h2>Out-of-vocabulary rate of each dialect against the others</h2>" + _html_table(oov))
-    parts.append(f"<h2>Temperature sampling across dialects (α = {params.alpha})</h2>" + _html_table(sampling))
+        parts.append(f"<h2 id='{a}'>By {a}</h2>" + _html_table(tables[a], restricted if a == "source" else None))
+    parts.append("<h2 id='growth'>Heaps' law per dialect (V = K·T<sup>β</sup>)</h2>" + _html_table(heaps))
+    parts.append("<h2>Words of each dialect found in no other</h2>" + _html_table(oov))
+    parts.append(f"<h2 id='sampling'>Temperature sampling across dialects (α = {params.alpha})</h2>" + _html_table(sampling))
+    parts.append("<div id='plots'></div>")
     for title, data in plots:
         parts.append(f"<h2>{html.escape(title)}</h2><img alt='{html.escape(title)}' src='data:image/png;base64,{data}'>")
     parts.append("</body></html>\n")

@@ -194,7 +194,9 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
 
     # Reports.
     rep = out / "reports"
-    bal = balance.write_report(rep, stats, params, recipe)
+    runner.warnings.extend(one_split_sources(by_source))
+    runner.warnings.extend(_orthography(rep, script_inventory, recipe))
+    bal = balance.write_report(rep, stats, params, recipe, runner.warnings)
     runner.warnings.extend(f"balance: {w}" for w in bal["warnings"])
     atomic_write_text(rep / "script-inventory.csv", script_inventory.csv())
     removal_rows = []
@@ -209,8 +211,6 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "variants.csv", csv_text(variants_report(stats.types["dialect"], variant_rewrites),
                                                  ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
-    runner.warnings.extend(one_split_sources(by_source))
-    runner.warnings.extend(_orthography(rep, script_inventory, recipe))
     atomic_write_text(rep / "sources.csv", csv_text(source_rows, SOURCE_COLUMNS))
     translit_rows = transliteration_report(recipe, round_trip)
     if translit_rows:
