@@ -29,7 +29,7 @@ def test_page_furniture_removed(demo_run, truth):
 def test_dehyphenation(demo_run, truth):
     ledger = load_ledger(demo_run.out)
     joins = ledger[(ledger.stage == "clean") & (ledger.reason == "dehyphenated")]
-    found = Counter((d.rsplit("/", 1)[-1], regex.search(r"rejoined '([^']*)'", x).group(1))
+    found = Counter((regex.split(r"[:/]", d)[-1], regex.search(r"rejoined '([^']*)'", x).group(1))
                     for d, x in zip(joins.doc_id, joins.detail))
     planted = Counter((h["booklet"], unicodedata.normalize("NFC", WORD.findall(h["word"])[0])) for h in truth["hyphenation"])
     hits = sum((found & planted).values())
@@ -83,9 +83,11 @@ def test_personal_data_scrubbed_everywhere(demo_run, truth):
 def test_near_duplicates_found(demo_run, truth):
     ledger = load_ledger(demo_run.out)
     removed = ledger[ledger.reason.isin(["near-duplicate", "exact-duplicate"])]
-    short = lambda i: i.replace("../sample_texts/", "")  # noqa: E731 - ids carry the path relative to the recipe
+    short = lambda i: i  # noqa: E731 - ids carry the path below the source's own folder
     kept_twin = {short(d): short(t) for d, t in zip(removed.doc_id, removed.dup_of)}
-    planted = [(n["doc"], n["of"]) for n in truth["near_duplicate"]]
+    # the ground truth names documents by the path below sample_texts: drop the source's folder
+    in_source = lambda i: regex.sub(r"^([^:]+):[^/:]+/", r"\1:", i)  # noqa: E731
+    planted = [(in_source(n["doc"]), in_source(n["of"])) for n in truth["near_duplicate"]]
     parent: dict[str, str] = {}
     root = lambda x: x if parent.get(x, x) == x else root(parent[x])  # noqa: E731 - union-find over planted pairs
     for a, b in planted:

@@ -97,3 +97,19 @@ def test_balance_page_leads_with_a_summary(demo_run):
     assert "documents" in summary and "Warnings of this run" in summary and "equally large dialects" in summary
     assert "(restricted)" in page and "documents_share" not in page and "Documents and words per dialect" in page
     assert not load_report(demo_run.out, "balance-dialect").empty
+
+
+def test_moving_the_folder_of_the_sources_keeps_ids_and_splits(tmp_path):
+    """Document ids are the path below each source's own folder: renaming the folder that holds
+    the sources changes no id and moves no document between train, dev and test."""
+    import shutil
+    from corpuskit.api import run
+    from .conftest import copy_demo
+    recipe = copy_demo(tmp_path)
+    first = run(recipe, tmp_path / "a", workers=1)
+    before = {r.id: r.split for r in load_corpus(first.out).itertuples()}
+    shutil.move(tmp_path / "sample_texts", tmp_path / "collected-2025")
+    recipe.write_text(recipe.read_text("utf-8").replace("../sample_texts/", "../collected-2025/"), "utf-8")
+    second = run(recipe, tmp_path / "b", workers=1)
+    after = {r.id: r.split for r in load_corpus(second.out).itertuples()}
+    assert before == after and len(before) > 100

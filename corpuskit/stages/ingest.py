@@ -18,7 +18,7 @@ from ..recipe import SourceSpec
 from ..records import new_document
 from ..storage import digest64
 
-VERSION = "4"
+VERSION = "5"
 
 
 @dataclass(frozen=True)
@@ -70,11 +70,32 @@ def _provenance(source: SourceSpec) -> dict:
             "redistributable": bool(source.redistributable)}
 
 
+def id_path(source: SourceSpec):
+    """Paths as document ids use them: below the source's own root (its path up to the first
+    wildcard), so renaming or moving the folder that holds a source keeps every id, and with it
+    every train/dev/test assignment.
+
+    >>> from corpuskit.recipe import SourceSpec
+    >>> s = SourceSpec(id="web", path="../texts/web/*.txt", format="text", medium="web", licence="CC0-1.0",
+    ...                consent="redistribution")
+    >>> id_path(s)("../texts/web/page-1.txt")
+    'page-1.txt'
+    """
+    from ..recipe import glob_prefix
+    root = os.path.dirname(glob_prefix(source.path))   # a single file: its folder
+
+    def key(rel: str) -> str:
+        inside = os.path.relpath(rel, root) if root else rel
+        return inside if inside != "." else os.path.basename(rel)
+    return key
+
+
 def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[LedgerRow],
                warnings: list[str]) -> Iterator[dict]:
     reader = READERS[source.format]
     opts = build(reader.Options, source.options, f"[[sources]] id = '{source.id}' options", "recipe")
     base = _provenance(source)
+    key_of = id_path(source)
     if source.format == "ocr-pages" and getattr(opts, "booklet", "") == "folder":
         by_folder: dict[str, list] = defaultdict(list)
         for path, rel in files:
@@ -87,7 +108,7 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
                     pages.append({"file": rel, "first": len(segments), "count": len(d["segments"])})
                     segments.extend(d["segments"])
             if segments:
-                yield new_document(id=f"{source.id}:{folder}", segments=segments,
+                yield new_document(id=f"{source.id}:{key_of(folder)}", segments=segments,
                                    meta={"folder": folder, "pages": pages}, **base)
         return
     for path, rel in files:
@@ -99,7 +120,7 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
             for name in ("dialect", "contributor", "date"):
                 if d.get(name):
                     fields[name] = d[name]
-            yield new_document(id=f"{source.id}:{rel}:{d['key']}", segments=d["segments"], meta=d["meta"], **fields)
+            yield new_document(id=f"{source.id}:{key_of(rel)}:{d['key']}", segments=d["segments"], meta=d["meta"], **fields)
 
 
 def ingest_unit(source: SourceSpec, files: list[tuple[str, str]], partition_docs: int,
