@@ -347,14 +347,30 @@ def variants_propose(recipe: Path = typer.Argument(...),
 @variants_app.command("accept")
 def variants_accept(sheet: Path = typer.Argument(..., help="the reviewed sheet"),
                     table: Path = typer.Option(..., help="variant table to update"),
-                    rejected: Path = typer.Option(None, help="file remembering rejected pairs")) -> None:
+                    rejected: Path = typer.Option(None, help="file remembering rejected pairs"),
+                    recipe: Optional[Path] = typer.Option(None, help="the recipe, to check that it uses this table")) -> None:
     """Read a reviewed sheet back: accepted pairs into the table, rejected pairs remembered."""
     from .discovery import accept_sheet
     try:
         added, refused = accept_sheet(sheet, table, rejected or table.with_suffix(".rejected.tsv"))
+        used = _recipe_uses_table(recipe, table) if recipe else None
     except CorpusError as exc:
         _fail(exc)
     out.print(f"{added} pairs added to {table}; {refused} rejected pairs remembered.", highlight=False, markup=False)
+    if used is False:
+        err.print(f"[yellow]note:[/] {escape(str(recipe))} does not use this table, so runs will not apply it; add "
+                  f"[stages.variants] table = {escape(repr(str(table)))} (a path relative to the recipe).",
+                  highlight=False, soft_wrap=True)
+    elif used is None:
+        out.print("Runs apply the table when the recipe's [stages.variants] table names it (give --recipe to check).",
+                  highlight=False, markup=False)
+
+
+def _recipe_uses_table(recipe_path: Path, table: Path) -> bool:
+    from .recipe import load_recipe
+    r = load_recipe(recipe_path)
+    named = r.stages["variants"].table
+    return bool(named) and r.resolve(named, "[stages.variants] table").resolve() == table.resolve()
 
 
 def main() -> None:

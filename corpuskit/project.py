@@ -5,7 +5,7 @@ from pathlib import Path
 
 from .errors import RecipeError
 
-TEMPLATE = Path(__file__).resolve().parent.parent / "recipes" / "template.toml"
+TEMPLATE = Path(__file__).resolve().parent / "templates" / "template.toml"   # package data
 
 ANSWERS = """\
 # Answers for the datasheet (Datasheets for Datasets; Data Statements for NLP).

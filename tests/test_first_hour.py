@@ -113,3 +113,16 @@ def test_moving_the_folder_of_the_sources_keeps_ids_and_splits(tmp_path):
     second = run(recipe, tmp_path / "b", workers=1)
     after = {r.id: r.split for r in load_corpus(second.out).itertuples()}
     assert before == after and len(before) > 100
+
+
+def test_variants_accept_says_when_the_recipe_will_not_use_the_table(tmp_path):
+    from .conftest import copy_demo
+    recipe = copy_demo(tmp_path)
+    sheet = tmp_path / "sheet.csv"
+    sheet.write_text("decision,variant,canonical,scope\naccept,kema,kɛma,all\n", "utf-8")
+    other = tmp_path / "other-table.tsv"
+    r = CliRunner().invoke(app, ["variants", "accept", str(sheet), "--table", str(other), "--recipe", str(recipe)])
+    assert r.exit_code == 0 and "does not use this table" in " ".join(r.output.split())
+    used = recipe.parent / "tables" / "demo-variants.tsv"
+    r = CliRunner().invoke(app, ["variants", "accept", str(sheet), "--table", str(used), "--recipe", str(recipe)])
+    assert r.exit_code == 0 and "does not use" not in r.output

@@ -83,7 +83,7 @@ def test_warc_records_through_warcio(tmp_path):
 
 
 def test_crawl_template_is_a_valid_recipe(tmp_path):
-    text = (ROOT / "recipes" / "crawl-template.toml").read_text("utf-8")
+    text = (ROOT / "corpuskit" / "templates" / "crawl-template.toml").read_text("utf-8")
     (tmp_path / "r.toml").write_text(text.replace("@NAME@", "narevi").replace("@LANGUAGE@", "qnv"), "utf-8")
     recipe = load_recipe(tmp_path / "r.toml")
     assert [s.format for s in recipe.sources] == ["warc", "jsonl"]
