@@ -17,7 +17,6 @@ from __future__ import annotations
 import random
 import sys
 import unicodedata
-from pathlib import Path
 
 from corpuskit import discovery as D
 

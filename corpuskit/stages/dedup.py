@@ -42,7 +42,9 @@ class Params(Checked):
     shingle: str = param("char", choices=("char", "word"), help="n-grams of characters or of words")
     ngram: int = param(5, low=1, high=20, help="n-gram length")
     min_shingles: int = param(5, low=1, high=100_000, help="documents with fewer n-grams only take part in exact-duplicate removal")
-    fp_weight: float = param(0.3, low=0.0, high=1.0, help="LSH false-positive weight (false-negative weight is 1 minus it)")
+    fp_weight: float = param(0.3, low=0.0, high=1.0, help="no longer used: bands and rows are chosen so that a pair at "
+                                                         "the threshold is a candidate with probability 0.99, and every "
+                                                         "candidate is verified exactly")
     source_priority: list[str] = param([], help="source ids, most trusted first, for choosing which twin to keep")
     boilerplate_min_docs: int = param(5, low=2, high=10_000_000, help="a segment in this many documents ...")
     boilerplate_min_sources: int = param(2, low=1, high=100_000, help="... of this many sources is boilerplate")
@@ -495,13 +497,12 @@ def load_signatures(runner, stage: str, in_stage: str, parts, params: Params) ->
 CANDIDATE_RECALL = 0.99   # a pair at the threshold becomes a candidate with at least this probability
 
 
-def lsh_params(threshold: float, num_perm: int, fp_weight: float = 0.0) -> tuple[int, int]:
+def lsh_params(threshold: float, num_perm: int) -> tuple[int, int]:
     """(bands, rows per band), b * r <= num_perm, such that a pair whose Jaccard equals the
     threshold becomes a candidate with probability 1 - (1 - t^r)^b >= CANDIDATE_RECALL; among
     those, the most rows per band (the steepest S-curve, so the fewest candidates far below the
     threshold), then the most bands.  Candidates are verified exactly, so a false candidate costs
-    one comparison, while a missed one cannot be recovered.  (``fp_weight`` is kept for recipes
-    that set it; the choice no longer depends on it.)
+    one comparison, while a missed one cannot be recovered.
 
     >>> lsh_params(0.8, 128)
     (21, 6)
@@ -531,10 +532,6 @@ def candidate_pairs(sigs, eligible: np.ndarray, bands: int, rows: int, engine=No
     return _candidates_by_sorting(sigset.band_keys(idx, bands, rows), idx, len(sigset))
 
 
-def _pair_array(pairs) -> np.ndarray:
-    return np.array(sorted(pairs), dtype=np.int64).reshape(-1, 2)
-
-
 def band_keys(sigs: np.ndarray, bands: int, rows: int) -> np.ndarray:
     """A 64-bit key per (document, band) from the band's hash values."""
     keys = np.zeros((sigs.shape[0], bands), dtype=np.uint64)
@@ -555,13 +552,6 @@ BANDWISE_ABOVE = 50_000
 FULL_BUCKET = 64
 
 
-def bucket_pairs(members: np.ndarray) -> list[tuple[int, int]]:
-    members = np.sort(members)
-    if len(members) > FULL_BUCKET:
-        return [(int(members[0]), int(m)) for m in members[1:]]
-    return [(int(members[x]), int(members[y])) for x in range(len(members)) for y in range(x + 1, len(members))]
-
-
 def _candidates_by_sorting(keys_by_band: np.ndarray, idx: np.ndarray, n: int) -> np.ndarray:
     """Documents agreeing on a band, found band by band by sorting the band keys; the pairs are
     kept as one sorted array of ``smaller * n + larger`` codes (8 bytes a pair)."""
@@ -576,7 +566,7 @@ def _candidates_by_sorting(keys_by_band: np.ndarray, idx: np.ndarray, n: int) ->
 
 
 def band_pairs(keys: np.ndarray, idx: np.ndarray) -> np.ndarray:
-    """``bucket_pairs`` of every bucket of one band at once: rows sorted by (key, row), then
+    """The candidate pairs of every bucket of one band at once: rows sorted by (key, row), then
     each row is paired with the rows 1, 2, ... places after it in the same bucket (buckets of
     at most FULL_BUCKET members), or with its bucket's first row (larger buckets)."""
     if len(keys) < 2:
@@ -640,7 +630,7 @@ def near_duplicate_pairs(data, threshold: float, params: Params, engine=None,
     eligible = data.n_shingles >= params.min_shingles
     if alive is not None:
         eligible &= alive
-    bands, rows = lsh_params(threshold, params.num_perm, params.fp_weight)
+    bands, rows = lsh_params(threshold, params.num_perm)
     idx = np.flatnonzero(eligible)
     if len(idx) > BANDWISE_ABOVE and not (engine is not None and hasattr(engine, "frame_map")):
         # Band by band: only verified pairs are kept, never the whole candidate set.
