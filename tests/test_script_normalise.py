@@ -141,3 +141,14 @@ def test_bad_table_line_names_the_line():
 def test_transliteration_keeps_nfc():
     t = translit.parse_table(TABLE)
     assert unicodedata.is_normalized("NFC", unicodedata.normalize("NFC", translit.apply_table(t, "ка\u0301")))
+
+
+def test_confusable_repair_only_into_words_of_the_orthography():
+    from corpuskit.stages.script import repair_token
+    letters = "abdeghiklmnostuwyɛɔŋ"
+    # UTS #39: Cyrillic а (U+0430) looks like Latin a; 'kama' is written with the orthography's letters
+    assert repair_token("k\u0430ma", "Latn", letters) == ("kama", False)
+    # 'xap' would need x and p, which the orthography does not have: reported as mixed, not rewritten
+    assert repair_token("x\u0430p", "Latn", letters) == ("x\u0430p", True)
+    # no orthography given: the look-alike is written
+    assert repair_token("x\u0430p", "Latn", "") == ("xap", False)

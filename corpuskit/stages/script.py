@@ -29,7 +29,7 @@ def same_script(a: str, b: str) -> bool:
     """Whether two ISO 15924 codes are written with the same Unicode scripts (Aran and Arab are)."""
     return a == b or bool(set(unicode_scripts(a)) & set(unicode_scripts(b)))
 
-VERSION = "4"
+VERSION = "5"
 COMMON, INHERITED, UNKNOWN = "Zyyy", "Zinh", "Zzzz"
 TOKEN = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{MODIFIER LETTER APOSTROPHE}\p{Nd}]+")
 
@@ -196,7 +196,17 @@ def repair_token(token: str, target: str | None = None, letters: str = "") -> tu
                 mixed = True
             ch = rep or ch
         out.append(ch)
-    return "".join(out), mixed
+    fixed = "".join(out)
+    if letters and dominant == target and not _in_orthography(fixed, letters):
+        return token, True     # the look-alike word would not be a word of the orthography: report, do not guess
+    return fixed, mixed
+
+
+def _in_orthography(word: str, letters: str) -> bool:
+    """Whether every letter of ``word`` (case folded, marks aside) is one of the orthography's letters."""
+    allowed = set(letters.lower())
+    return all(not ch.isalpha() or ch.lower() in allowed or unicodedata.normalize("NFD", ch.lower())[0] in allowed
+               for ch in word)
 
 
 def _scripts_in(text: str) -> int:
