@@ -31,6 +31,8 @@ from .pii import scrub
 __all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files"]
 
 LEAK_MIN_CHARS = 20          # shorter restricted segments ("ok", "thank you") are not tracked
+LEAK_PREFIX_CHARS = 40       # a report cell shorter than a restricted segment is a leak from this length on
+                             # (quoted beginnings); public segments starting the same way are not leaks
 PUBLIC_PARTS = ("corpus", "splits", "tokenizer", "reports")
 PUBLIC_FILES = ("datasheet.md",)
 TEXT_COLUMNS = {"text", "example", "examples", "variant_examples", "canonical_examples"}
@@ -70,6 +72,7 @@ class LeakAudit:
     restricted_texts: list[str]               # leak keys, sorted, of segments not also public
     names: list[str]                          # real names that were pseudonymised
     restricted_sources: set[str]
+    public_digests: object = None             # sorted uint64 digests of public segments and their beginnings
     id_patterns: tuple = ()
     regions: tuple = ()
     scrub_pii: bool = True
@@ -87,14 +90,30 @@ class LeakAudit:
         return sorted(scrub(text, self.id_patterns, self.regions)[1])
 
     def _restricted(self, text: str) -> bool:
+        """A whole restricted segment, or the first LEAK_PREFIX_CHARS or more characters of one, that
+        is not also (the beginning of) a public segment."""
         for piece in text.split(" | "):
             key = leak_key(piece)
             if len(key) < LEAK_MIN_CHARS:
                 continue
             i = bisect.bisect_left(self.restricted_texts, key)
-            if i < len(self.restricted_texts) and self.restricted_texts[i].startswith(key):
+            if i >= len(self.restricted_texts) or not self.restricted_texts[i].startswith(key):
+                continue
+            if self.restricted_texts[i] != key and len(key) < LEAK_PREFIX_CHARS:
+                continue
+            if not self._public(key):
                 return True
         return False
+
+    def _public(self, key: str) -> bool:
+        import numpy as np
+        from .storage import digest64
+        public = self.public_digests
+        if public is None or not len(public):
+            return False
+        probes = [digest64(key)] + ([digest64(key[:LEAK_PREFIX_CHARS])] if len(key) >= LEAK_PREFIX_CHARS else [])
+        at = np.searchsorted(public, np.array(probes, dtype=np.uint64))
+        return any(a < len(public) and public[a] == p for a, p in zip(at.tolist(), probes))
 
     def check(self, text: str, file: str, line: int, where: str = "", segment: bool = False,
               example: bool = False) -> None:

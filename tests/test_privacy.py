@@ -181,7 +181,7 @@ def test_leak_audit_finds_each_planted_kind(tmp_path):
         "corpus/corpus-00000.jsonl.gz": json.dumps({"id": "web:1", "source": "web", "segments": ["kema tabu"],
                                                     "meta": {"note": "ask +254 712 345678"}}) + "\n"
                                         + json.dumps({"id": "chat:9", "source": "chat", "segments": ["x"]}) + "\n",
-        "reports/removals.csv": "stage,reason,examples\nfilter,too-short,selka said the river crossing opens\n",
+        "reports/removals.csv": "stage,reason,examples\nfilter,too-short,selka said the river crossing opens before the\n",
         "reports/balance-contributor.csv": "contributor,documents\nSelka Moru,3\n",
         "datasheet.md": "# Datasheet\nWrite to ana@example.org\n",
     })
@@ -191,6 +191,19 @@ def test_leak_audit_finds_each_planted_kind(tmp_path):
                      ("reports/removals.csv", 2, "restricted-text"),
                      ("reports/balance-contributor.csv", 2, "real-name"),
                      ("datasheet.md", 2, "personal-data:email")}
+
+
+def test_a_public_segment_that_begins_like_a_restricted_one_is_no_leak(tmp_path):
+    import numpy as np
+    from corpuskit.audit import LEAK_PREFIX_CHARS
+    from corpuskit.storage import digest64
+    restricted = [leak_key("Selka said the river crossing opens before the rains come")]
+    public = leak_key("Selka said the river crossing opens before the market day")
+    (tmp_path / "reports").mkdir()
+    (tmp_path / "reports" / "script-inventory.csv").write_text(f"letter,example\nS,{public[:45]}\n", "utf-8")
+    digests = np.array(sorted({digest64(public), digest64(public[:LEAK_PREFIX_CHARS])}), dtype=np.uint64)
+    assert LeakAudit(restricted, [], set(), digests).scan(tmp_path) == []
+    assert [h.kind for h in LeakAudit(restricted, [], set()).scan(tmp_path)] == ["restricted-text"]
 
 
 def test_leak_audit_passes_clean_files(tmp_path):

@@ -21,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..audit import LEAK_MIN_CHARS, leak_key
+from ..audit import LEAK_MIN_CHARS, LEAK_PREFIX_CHARS, leak_key
 from ..ledger import Counts, remove_document
 from ..people import pseudonymise_document
 from ..records import jsonable
@@ -31,7 +31,7 @@ from .split import SPLITS
 __all__ = ["PieceSettings", "LedgerSettings", "document_piece_task", "ledger_piece_task", "LedgerSummary",
            "ReviewPool", "SampleMerger", "shard_groups", "join_sections", "read_section", "DESTINATIONS"]
 
-VERSION = "3"
+VERSION = "4"
 DESTINATIONS = ("public", "restricted") + SPLITS
 STAGE = "export"
 
@@ -119,6 +119,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
         keys = [k for k in map(leak_key, d["segments"]) if len(k) >= LEAK_MIN_CHARS]
         if where == "public":
             public_digests.update(map(digest64, keys))
+            public_digests.update(digest64(k[:LEAK_PREFIX_CHARS]) for k in keys if len(k) > LEAK_PREFIX_CHARS)
         else:
             restricted_texts.update(keys)
         if where == "excluded":

@@ -303,8 +303,9 @@ def _leak_audit(out: Path, cache, names: list[str], summaries: list[dict], peopl
     restricted = [t for name in names for t in cache.get_json("export", f"{name}.json").get("restricted_texts", [])]
     public = [np.frombuffer(read_section(cache.blob_path("export", f"{name}.bin"), s["sections"]["public.digests"]),
                             dtype="<u8") for name, s in zip(names, summaries) if "public.digests" in s["sections"]]
-    checker = audit.LeakAudit(audit.restricted_keys(restricted, np.concatenate(public) if public else []),
-                              list(people), {s.id for s in recipe.sources if not s.redistributable},
+    public_digests = np.unique(np.concatenate(public)) if public else np.zeros(0, np.uint64)
+    checker = audit.LeakAudit(audit.restricted_keys(restricted, public_digests),
+                              list(people), {s.id for s in recipe.sources if not s.redistributable}, public_digests,
                               tuple(fparams.id_patterns), tuple(recipe.corpus.regions), fparams.pii != "keep")
     hits = checker.scan(out)
     audit.write_report(out / "private" / "leak-audit.json", hits)
