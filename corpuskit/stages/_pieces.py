@@ -104,15 +104,15 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
     by_source: dict[str, Counter] = defaultdict(Counter)
     split_counts: dict[tuple[str, str], list[int]] = defaultdict(lambda: [0, 0])
     counts, export_rows = Counts(), []
-    key = bytes.fromhex(settings.secret) if settings.secret else b""
+    secret = bytes.fromhex(settings.secret) if settings.secret else b""
     naming = {source: (team, keeps) for source, team, keeps in settings.named_as}
     people: dict[str, str] = {}
     restricted_texts: set[str] = set()
     public_digests: set[int] = set()
     for d in docs:
         team, keeps_names = naming.get(d["source"], (None, False))
-        if key and not keeps_names:
-            pseudonymise_document(d, key, team, people)
+        if secret and not keeps_names:
+            pseudonymise_document(d, secret, team, people)
         counts.docs_in += 1
         counts.segs_in += len(d["segments"])
         where = destination(d, settings.restricted)
