@@ -163,6 +163,13 @@ def _check_partition(stage_name: str, key: str, n_in: int, segs_in: int, docs_ou
                         f"segments {segs_in} -> {segs_out} + {removed_segs} removed); this is a bug, please report it.")
 
 
+def stage_version(module) -> str:
+    """What a cache key knows of a stage's code: its VERSION and a hash of its source and every
+    corpuskit module it uses (see codeversion), so editing a helper cannot leave results stale."""
+    from .codeversion import code_version
+    return f"{getattr(module, 'VERSION', '1')}:{code_version(module.__name__)}"
+
+
 WRONG_SCRIPT_SHARE = 0.9    # a stage that removes this share of segments for their script stops the run
 
 
@@ -206,7 +213,7 @@ class Runner:
             reader = READERS[source.format]
             for group in groups:
                 fingerprints = [(rel, file_sha256(Path(p))) for p, rel in group]
-                key = stable_hash("ingest", ingest.VERSION, getattr(reader, "VERSION", "1"), source, fingerprints,
+                key = stable_hash("ingest", stage_version(ingest), stage_version(reader), source, fingerprints,
                                   self.recipe.corpus.partition_docs)
                 units.append((source, [(str(p), rel) for p, rel in group], key))
         return units
@@ -300,10 +307,10 @@ class Runner:
         if hasattr(stage, "survey_partition"):
             for source in self.recipe.sources:
                 in_keys = [p.key for p in parts if p.source == source.id]
-                skey = stable_hash(name, stage.VERSION, params, ctx_key, in_keys)
+                skey = stable_hash(name, stage_version(stage), params, ctx_key, in_keys)
                 surveys[source.id] = (skey, None)
                 self.cache.use(name, f"survey-{skey}")
-        keys = {p.key: stable_hash(name, stage.VERSION, params, ctx_key,
+        keys = {p.key: stable_hash(name, stage_version(stage), params, ctx_key,
                                    surveys.get(p.source, ("", None))[0], p.key) for p in parts}
         missing = [p for p in parts if not self.cache.done(name, keys[p.key])]
         ctx = None
@@ -357,7 +364,7 @@ class Runner:
         started = time.perf_counter()
         decisions = stage.decide(self, in_stage, parts, params)
         self._rest(True)
-        jobs = [(p, stable_hash(name, stage.VERSION, params, p.key, decisions[p.key]), decisions[p.key]) for p in parts]
+        jobs = [(p, stable_hash(name, stage_version(stage), params, p.key, decisions[p.key]), decisions[p.key]) for p in parts]
         out = self._run_partitions(name, in_stage, jobs, report, execute)
         report.seconds = time.perf_counter() - started
         reports.append(report)

@@ -4,7 +4,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from .recipe import Recipe
-from .runner import Partition, Runner
+from .runner import Partition, Runner, stage_version
 from .stages.registry import GLOBAL_STAGES, MAP_STAGES, STAGES
 from .storage import Cache, stable_hash
 
@@ -28,8 +28,9 @@ def stage_status(recipe: Recipe, out: Path) -> list[tuple[str, str, str]]:
         surveys = {}
         if hasattr(stage, "survey_partition"):
             for s in recipe.sources:
-                surveys[s.id] = stable_hash(name, stage.VERSION, params, ctx_key, [p.key for p in parts if p.source == s.id])
-        keys = [stable_hash(name, stage.VERSION, params, ctx_key, surveys.get(p.source, ""), p.key) for p in parts]
+                surveys[s.id] = stable_hash(name, stage_version(stage), params, ctx_key,
+                                            [p.key for p in parts if p.source == s.id])
+        keys = [stable_hash(name, stage_version(stage), params, ctx_key, surveys.get(p.source, ""), p.key) for p in parts]
         stale = [k for k in keys if not cache.done(name, k)]
         if stale:
             rows.append((name, "stale", f"{len(stale)} of {len(keys)} partitions to compute (inputs, parameters, "

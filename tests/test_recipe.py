@@ -144,3 +144,13 @@ def test_a_source_in_another_script_needs_a_table(tmp_path):
     from corpuskit.validate import validate
     with pytest.raises(RecipeError, match=r"'river-hymns' is written in Cyrl.*no Cyrl table"):
         validate(load_recipe(recipe))
+
+
+def test_cache_keys_follow_the_code_of_helper_modules():
+    """A stage's cache key covers its module and every corpuskit module it imports: helpers that carry
+    no VERSION of their own (transliteration, protected spans, the variant table) are included."""
+    from corpuskit.codeversion import code_version, imported_modules
+    assert {"corpuskit.stages.transliterate", "corpuskit.protect"} <= imported_modules("corpuskit.stages.script")
+    assert "corpuskit.variants_table" in imported_modules("corpuskit.stages.variants")
+    assert "corpuskit.pii" in imported_modules("corpuskit.stages.qualityfilter")
+    assert code_version("corpuskit.stages.script") != code_version("corpuskit.stages.dedup")

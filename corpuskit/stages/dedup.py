@@ -479,7 +479,9 @@ def _codes(values: np.ndarray, names: list[str]) -> np.ndarray:
 
 def load_signatures(runner, stage: str, in_stage: str, parts, params: Params) -> SignatureSet:
     """Compute (or reuse) every partition's signatures; the set of them in partition order."""
-    names = {p.key: f"sig-{stable_hash(VERSION, p.key, params.num_perm, params.ngram, params.shingle)}" for p in parts}
+    from ..codeversion import code_version
+    version = f"{VERSION}:{code_version(__name__)}"
+    names = {p.key: f"sig-{stable_hash(version, p.key, params.num_perm, params.ngram, params.shingle)}" for p in parts}
     todo = [p for p in parts if not runner.cache.has_blob(stage, f"{names[p.key]}.npz")]
     args = [(str(runner.cache.root), in_stage, p.key, params, names[p.key], stage) for p in todo]
     with runner.progress(f"{stage}:signatures", len(args)) as tick:

@@ -342,8 +342,10 @@ def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[st
                              runner.people_secret.hex() if runner.people_secret else "",
                              tuple((s.id, s.contributor or None, s.attribution) for s in recipe.sources),
                              recipe.corpus.language)
-    doc_names = [f"doc-{stable_hash(PIECES_VERSION, VERSION, p.key, settings)}" for p in parts]
-    ledger_pieces = [(stage, [f"ledger-{stable_hash(PIECES_VERSION, stage, key, ledger_settings)}"
+    from ..codeversion import code_version
+    pieces_version = f"{PIECES_VERSION}:{code_version('corpuskit.stages._pieces')}"
+    doc_names = [f"doc-{stable_hash(pieces_version, VERSION, p.key, settings)}" for p in parts]
+    ledger_pieces = [(stage, [f"ledger-{stable_hash(pieces_version, stage, key, ledger_settings)}"
                               for key in runner.last_keys.get(stage, [])])
                      for stage in STAGE_ORDER if stage != "export"]
     root = str(cache.root)

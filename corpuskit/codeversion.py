@@ -1,0 +1,66 @@
+"""The version of a stage's code, for cache keys: a hash of its module's source and of every
+corpuskit module it imports, directly or through others.  Editing a helper a stage uses makes the
+stage's cached results stale; editing an unrelated module does not."""
+from __future__ import annotations
+
+import ast
+import hashlib
+import importlib.util
+from functools import lru_cache
+from pathlib import Path
+
+__all__ = ["code_version", "imported_modules"]
+
+PACKAGE = "corpuskit"
+
+
+def _resolve(module_name: str, package: str, node: ast.ImportFrom) -> list[str]:
+    if node.level:
+        base = package.split(".")
+        base = base[:len(base) - node.level + 1]
+        target = ".".join(base + ([node.module] if node.module else []))
+    else:
+        target = node.module or ""
+    if not target.startswith(PACKAGE):
+        return []
+    found = [target]
+    spec = importlib.util.find_spec(target)
+    if spec is not None and spec.submodule_search_locations:   # `from . import transliterate` names a module
+        for alias in node.names:
+            candidate = f"{target}.{alias.name}"
+            if importlib.util.find_spec(candidate) is not None:
+                found.append(candidate)
+    return found
+
+
+@lru_cache(maxsize=None)
+def imported_modules(module_name: str) -> frozenset[str]:
+    """corpuskit modules ``module_name`` imports, transitively (itself included)."""
+    seen: set[str] = set()
+    todo = [module_name]
+    while todo:
+        name = todo.pop()
+        if name in seen:
+            continue
+        spec = importlib.util.find_spec(name)
+        if spec is None or not spec.origin or not spec.origin.endswith(".py"):
+            continue
+        seen.add(name)
+        package = name if spec.submodule_search_locations else name.rpartition(".")[0]
+        tree = ast.parse(Path(spec.origin).read_text("utf-8"))
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom):
+                todo += _resolve(name, package, node)
+            elif isinstance(node, ast.Import):
+                todo += [a.name for a in node.names if a.name.startswith(PACKAGE)]
+    return frozenset(seen)
+
+
+@lru_cache(maxsize=None)
+def code_version(module_name: str) -> str:
+    """SHA-256 (16 hex digits) over the sources of ``module_name`` and the corpuskit modules it uses."""
+    h = hashlib.sha256()
+    for name in sorted(imported_modules(module_name)):
+        h.update(name.encode())
+        h.update(Path(importlib.util.find_spec(name).origin).read_bytes())
+    return h.hexdigest()[:16]
