@@ -140,7 +140,10 @@ def render(recipe, facts: dict) -> tuple[str, list[str]]:
                 out.append(f"Language identification: fastText from seed text; {lid.get('folds')}-fold cross-validated "
                            f"accuracy {_fmt(lid.get('accuracy'))}, macro-F1 {_fmt(lid.get('macro_f1'))} over all seed labels "
                            f"(dialect labels included); target-language threshold {_fmt(th.get('value'))} "
-                           f"(precision {_fmt(th.get('precision'))}, recall {_fmt(th.get('recall'))} on held-out seed folds). "
+                           f"(precision {_fmt(th.get('precision'))}, recall {_fmt(th.get('recall'))} on held-out seed folds; "
+                           f"the recipe's target {_fmt(lid.get('target_precision'))} judged by the Wilson lower bound "
+                           f"{_fmt(th.get('precision_lower_bound'))}). The classifier averages the {lid.get('folds')} fold "
+                           "models, so the threshold means on new text what it meant on the held-out folds. "
                            "See `reports/langid-classes.csv` and `reports/langid-confusion.csv`.\n")
                 if lid.get("target_segments_lost"):
                     out.append(f"Whole documents below the recipe's target share were removed, taking "
