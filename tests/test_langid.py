@@ -218,3 +218,13 @@ def test_precision_holds_and_recall_beats_a_plain_model_on_cldr_names(cldr, targ
     assert r["alone"]["precision"] >= 0.9 - 0.03 and r["context"]["precision"] >= 0.9 - 0.03
     assert r["alone"]["recall"] >= r["plain_recall_at_same_precision"]
     assert r["context"]["recall"] > r["alone"]["recall"]          # documents of 8 lines of one locale
+
+
+def test_the_model_is_retrained_when_a_training_setting_changes(tmp_path):
+    recipe = load_recipe(copy_demo(tmp_path))
+    params = recipe.stages["langid"]
+    key = langid.context_key(recipe, params)
+    import dataclasses
+    for change in ({"target_precision": 0.9}, {"folds": 3}, {"epoch": 30}, {"minn": 1}, {"tune": True}):
+        assert langid.context_key(recipe, dataclasses.replace(params, **change)) != key, change
+    assert langid.context_key(recipe, dataclasses.replace(params, review_size=5)) == key

@@ -5,14 +5,17 @@ thread and a fixed seed, so training is deterministic) learns the target
 language (optionally per dialect), each contact language and an ``other``
 class.  k-fold cross-validation gives an honest error estimate; the decision
 threshold on the target-language probability is calibrated on the held-out
-folds to reach the recipe's precision, and the final model is trained exactly
-as the fold models were (the same shuffled order, the same hyperparameters),
-so the threshold carries over.  A target the seeds cannot reach stops the run.
+folds to reach the recipe's precision (judged by its Wilson lower bound), and
+the classifier is the fold models themselves, averaged, every one trained on
+the seeds in one shuffled order: the threshold means on new text what it meant
+on the folds.  A target the seeds cannot reach stops the run.
 
 Every segment passes the script gate, however short.  A short segment (few
-letters) is decided with its document's context: its score is mixed with the
-mean score of the document's other segments, in proportion to how little text
-it has.  Segments without enough letters to judge follow their neighbours.
+letters) is decided with its document's context: the positive evidence (log
+odds) of the document's other segments is added to its own, in proportion to
+how little text it has; a long segment that switches language part-way is
+scored again by halves.  Segments without enough letters to judge follow their
+neighbours.
 Target-language segments of mixed documents are kept; dropping whole documents
 below a target share is an opt-in (``min_share``).
 """
@@ -80,8 +83,11 @@ def context_key(recipe, params) -> str:
     files = {k: file_sha256(p) for k, p in _seed_paths(recipe, params).items() if p.exists()}
     extra = [file_sha256(recipe.resolve(x, "[stages.langid]")) for x in (params.model, params.review_file)
              if x and recipe.resolve(x, "[stages.langid]").exists()]
-    return stable_hash(VERSION, recipe.corpus.language, recipe.corpus.target_script, files, extra,
-                       {s.id: s.language for s in recipe.sources if s.language})
+    from ..codeversion import code_version
+    training = {k: getattr(params, k) for k in ("folds", "target_precision", "epoch", "dim", "minn", "maxn",
+                                                "word_ngrams", "tune", "model")}
+    return stable_hash(VERSION, code_version(__name__), recipe.corpus.language, recipe.corpus.target_script, files,
+                       extra, training, {s.id: s.language for s in recipe.sources if s.language})
 
 
 def is_target(label: str, language: str) -> bool:
