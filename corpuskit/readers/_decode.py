@@ -22,6 +22,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Iterable, Iterator
 
+import regex
+
 from ..errors import DataError
 from ..ledger import LedgerRow, rewrite
 
@@ -322,7 +324,6 @@ def unify_text_newlines(chunks: Iterable[str]) -> Iterator[str]:
 def _utf16_without_bom(sample: bytes) -> str | None:
     """UTF-16 without a BOM in a script other than Latin: the high bytes of the code units are
     nearly all one value (0x04 for Cyrillic), and the text decodes to letters, not controls."""
-    import regex
     if len(sample) < 64:
         return None
     sample = sample[:len(sample) // 2 * 2]
@@ -362,7 +363,9 @@ def _cut_at_line(data: bytes, limit: int) -> bytes:
     return data[:at + 1] if at > 0 else data
 
 
-_IN_WORD_SYMBOL = None
+# A symbol, private-use, control or unassigned character touching a letter: "c½ur" read in the wrong
+# sibling code page.
+_IN_WORD_SYMBOL = regex.compile(r"(?<=\p{L})[\p{S}\p{Co}\p{Cc}\p{Cn}\p{No}]|[\p{S}\p{Co}\p{Cc}\p{Cn}\p{No}](?=\p{L})")
 # Latin-script single-byte code pages decode one another's bytes into other letters (è or č):
 # among those the detector finds about as orderly, the one whose letters fit a language best.
 LATIN_PAGES = {"cp1250", "cp1252", "cp1254", "cp1257", "iso8859_2", "iso8859_9", "iso8859_15", "latin_1", "mac_roman"}
@@ -380,15 +383,11 @@ def _prefer_coherent(matches):
 def _prefer_sibling(chosen: str, sample: bytes, candidates: list[str]) -> str:
     """Among the chosen code page and its siblings in the candidate list, the one whose text has
     the fewest symbols between letters; the detector's choice on a tie."""
-    global _IN_WORD_SYMBOL
-    import regex
     norm = codecs.lookup(chosen).name
     family = next((f for f in SIBLINGS if norm in {codecs.lookup(x).name for x in f}), None)
     if family is None:
         return chosen
     allowed = {codecs.lookup(c).name for c in candidates}
-    if _IN_WORD_SYMBOL is None:
-        _IN_WORD_SYMBOL = regex.compile(r"(?<=\p{L})[\p{S}\p{Co}\p{Cc}\p{Cn}\p{No}]|[\p{S}\p{Co}\p{Cc}\p{Cn}\p{No}](?=\p{L})")
     scored = []
     for rank, name in enumerate([chosen] + [f for f in family if codecs.lookup(f).name != norm]):
         if codecs.lookup(name).name not in allowed:
