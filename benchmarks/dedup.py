@@ -20,7 +20,9 @@ import numpy as np
 from scipy import sparse
 
 from corpuskit.demo.generate import Lexicon
-from corpuskit.stages.dedup import Params, clusters_from_pairs, lsh_params, near_duplicates_of_texts, normalise_for_hash
+from corpuskit.stages.dedup import Params, clusters_from_pairs, near_duplicates_of_texts
+from corpuskit.minhash import normalise_for_hash
+from corpuskit.lsh import lsh_params
 
 
 def make_documents(n: int, seed: int = 11) -> list[str]:

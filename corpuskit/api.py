@@ -13,7 +13,7 @@ from .errors import RecipeError
 from .recipe import load_recipe
 from .runner import OutputLock, Runner, RunResult
 
-__all__ = ["run", "load_corpus", "load_ledger", "load_report"]
+__all__ = ["run", "propose_variants", "load_corpus", "load_ledger", "load_report"]
 
 
 def run(recipe_path, out, engine: str = "local", workers: int | None = None, until: str | None = None,
@@ -26,6 +26,39 @@ def run(recipe_path, out, engine: str = "local", workers: int | None = None, unt
     out = Path(out)
     with OutputLock(out), make_engine(engine, workers, scheduler) as eng:
         return Runner(recipe, out, eng).run(until=until, only=only)
+
+
+def propose_variants(recipe, out: Path, sheet: Path, top: int) -> int:
+    """Run the recipe up to the quality filter (cached work is reused), collect the corpus's
+    word types and write the ranked candidates to a review sheet.  Returns the number written."""
+    from .discovery import (SHEET_COLUMNS, CostTable, WordList, collect, load_costs, load_rejected,
+                            load_rejected_forms, propose, rejected_path, sheet_rows)
+    from .casing import fold_case
+    from .variants_table import load_protected, load_table, write_sheet
+
+    params = recipe.stages["variants"]
+    costs = load_costs(recipe.resolve(params.costs, "[stages.variants] costs")) if params.costs else CostTable()
+    exclude: set[tuple[str, str]] = set()
+    rejected_forms: dict[str, int] = {}
+    if params.table:
+        table = recipe.resolve(params.table, "[stages.variants] table")
+        if table.exists():
+            exclude |= {(e.variant.casefold(), e.canonical.casefold()) for e in load_table(table)}
+        exclude |= load_rejected(rejected_path(table))
+        rejected_forms = load_rejected_forms(rejected_path(table))
+    protected = load_protected(recipe.resolve(params.protected, "[stages.variants] protected")) if params.protected else set()
+    wordlist = WordList(recipe.resolve(params.wordlist, "[stages.variants] wordlist")) if params.wordlist else None
+    with OutputLock(out), make_engine("local", None, None) as engine:
+        runner = Runner(recipe, Path(out), engine)
+        runner.run(until="filter")
+        docs = [d for key in runner.last_keys["filter"] for d in runner.cache.read_docs("filter", key)]
+    language = recipe.corpus.language
+    stats, contexts = collect(docs, language=language)
+    candidates = propose(stats, contexts, costs, recipe.corpus.letters, top, exclude, language=language,
+                         wordlist=wordlist, protected={fold_case(w, language) for w in protected},
+                         rejected_forms=rejected_forms)
+    write_sheet(Path(sheet), sheet_rows(candidates, stats), SHEET_COLUMNS)
+    return len(candidates)
 
 
 def _reimported_script() -> bool:

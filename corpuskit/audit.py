@@ -26,6 +26,7 @@ from typing import Iterable, Iterator
 
 import regex
 
+from .casing import comparison_key
 from .pii import scrub
 
 __all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files"]
@@ -44,7 +45,7 @@ _NUMBER = regex.compile(r"^-?\d+(?:\.\d+)?(?:e-?\d+)?$")
 
 def leak_key(text: str) -> str:
     """Text compared for restricted material: case-folded, spaces collapsed."""
-    return " ".join(text.casefold().split())
+    return comparison_key(text)
 
 
 def public_files(out: Path) -> list[Path]:

@@ -3,11 +3,21 @@ from __future__ import annotations
 
 import unicodedata
 
-__all__ = ["fold_case", "DOTLESS_I_LANGUAGES"]
+__all__ = ["fold_case", "comparison_key", "DOTLESS_I_LANGUAGES"]
 
 # Languages whose dotted and dotless i are two letters: I pairs with ı, İ with i (Unicode's
 # SpecialCasing.txt, the tr and az conditions; also Crimean Tatar, Tatar and Kazakh in Latin script).
 DOTLESS_I_LANGUAGES = ("tr", "az", "crh", "tt", "kk")
+
+
+def comparison_key(text: str) -> str:
+    """Text as the stages compare it (duplicates, repeated lines, restricted text, language-ID
+    input): Unicode full case folding, white space runs collapsed to one space, ends trimmed.
+
+    >>> comparison_key("  Straße\tIS  here ")
+    'strasse is here'
+    """
+    return " ".join(text.casefold().split())
 
 
 def fold_case(word: str, language: str = "") -> str:

@@ -74,14 +74,14 @@ def _summary(result) -> None:
     """Counts per stage in a table that fits 80 columns, then what was removed and what was rewritten
     (per stage, by reason), per-source counts, the conservation check; warnings come last."""
     t = Table(title="Run summary", title_justify="left")
-    for col in ("stage", "documents", "segments", "removed", "rewritten"):
+    for col in ("stage", "documents", "segments", "removed", "merged", "rewritten"):
         t.add_column(col, justify="left" if col == "stage" else "right")
     for s in result.stages:
         c = s.counts
         t.add_row(s.name, f"{c.docs_in} → {c.docs_out}", f"{c.segs_in} → {c.segs_out}",
-                  str(sum(c.removed.values())), str(sum(c.rewritten.values())))
+                  str(sum(c.removed.values())), str(sum(c.merged.values())), str(sum(c.rewritten.values())))
     out.print(t)
-    for title, attr in (("Removed", "removed"), ("Rewritten", "rewritten")):
+    for title, attr in (("Removed", "removed"), ("Merged into a neighbour", "merged"), ("Rewritten", "rewritten")):
         lines = [f"  {s.name}: " + ", ".join(f"{k.split(':', 1)[1]} {v}" for k, v in sorted(getattr(s.counts, attr).items()))
                  for s in result.stages if getattr(s.counts, attr)]
         if lines:
@@ -100,9 +100,9 @@ def _summary(result) -> None:
     if result.conservation:
         cd, cs = result.conservation["documents"], result.conservation["segments"]
         ok = cd["holds"] and cs["holds"]
-        out.print(f"Conservation: documents {cd['in']} = {cd['kept']} kept + {cd['removed']} removed; "
-                  f"segments {cs['in']} = {cs['kept']} kept + {cs['removed']} removed: "
-                  + ("[green]holds[/]" if ok else "[red]FAILS[/]"), highlight=False)
+        out.print("Conservation " + ("[green]holds[/]" if ok else "[red]FAILS[/]") + f": documents {cd['in']} = "
+                  f"{cd['kept']} kept + {cd['removed']} removed;\n  segments {cs['in']} = {cs['kept']} kept + "
+                  f"{cs['removed']} removed + {cs.get('merged', 0)} merged into a neighbour", highlight=False)
 
 
 def _warnings(warnings: list[str], limit: int = 20) -> None:
@@ -184,6 +184,7 @@ def check(recipe: Path = typer.Argument(..., help="the recipe TOML file")) -> No
     from .reports.datasheet import load_answers, unanswered
     from .recipe import load_recipe
     from .runner import Runner
+    from .stages.registry import STAGES
     from .validate import validate
 
     try:
@@ -193,9 +194,8 @@ def check(recipe: Path = typer.Argument(..., help="the recipe TOML file")) -> No
         runner = Runner(r, Path("/nonexistent"), None)
         runner.ingest_units()
         notes += runner.warnings
-        for name, stage in __import__("corpuskit.stages.registry", fromlist=["STAGES"]).STAGES.items():
-            if hasattr(stage, "context_key"):
-                stage.context_key(r, r.stages[name])
+        for name, stage in STAGES.items():   # each stage's context key reads its tables and seeds
+            stage.context_key(r, r.stages[name])
         open_q = unanswered(load_answers(r))
     except CorpusError as exc:
         _fail(exc)
@@ -330,14 +330,14 @@ def variants_propose(recipe: Path = typer.Argument(...),
                      sheet: Optional[Path] = typer.Option(None, help="review sheet to write (default: OUT/private/variant-review.csv)"),
                      top: int = typer.Option(200, help="candidates to propose")) -> None:
     """Propose ranked variant candidates from the corpus into a review sheet."""
-    from .discovery import propose_from_run
+    from .api import propose_variants
     from .recipe import load_recipe
 
     out_dir = out_dir or recipe.parent / "OUT"
     sheet = sheet or out_dir / "private" / "variant-review.csv"
     try:
         sheet.parent.mkdir(parents=True, exist_ok=True)
-        n = propose_from_run(load_recipe(recipe), out_dir, sheet, top)
+        n = propose_variants(load_recipe(recipe), out_dir, sheet, top)
     except CorpusError as exc:
         _fail(exc)
     out.print(f"wrote {n} candidates to {sheet}; mark each row accept or reject, then run 'corpuskit variants accept'.",

@@ -37,10 +37,10 @@ import regex
 from .casing import fold_case
 from .words import NO_SPACE, words as split_words
 from .errors import DataError, RecipeError
-from .variants_table import TABLE_HEADER, load_table, restore_cell, tokens, write_sheet
+from .variants_table import TABLE_HEADER, load_table, restore_cell, tokens
 
 __all__ = ["CostTable", "TypeStats", "Candidate", "collect", "propose", "weighted_distance", "fold_key",
-           "load_costs", "propose_from_run", "accept_sheet", "load_rejected", "rejected_path", "sheet_rows",
+           "load_costs", "accept_sheet", "load_rejected", "rejected_path", "sheet_rows",
            "ppmi_vectors", "cosine", "candidate_pairs", "SHEET_COLUMNS", "COSTS_HEADER"]
 
 COSTS_HEADER = "# corpuskit variant costs 1"
@@ -560,37 +560,3 @@ def accept_sheet(sheet: Path, table: Path, rejected: Path) -> tuple[int, int]:
 
 def rejected_path(table: Path) -> Path:
     return table.with_suffix(".rejected.tsv")
-
-
-def propose_from_run(recipe, out: Path, sheet: Path, top: int) -> int:
-    """Run the recipe up to the quality filter (cached work is reused), collect the corpus's
-    word types and write the ranked candidates to a review sheet.  Returns the number written."""
-    from .engines import make_engine
-    from .runner import OutputLock, Runner
-
-    from .variants_table import load_protected
-
-    params = recipe.stages["variants"]
-    costs = load_costs(recipe.resolve(params.costs, "[stages.variants] costs")) if params.costs else CostTable()
-    exclude: set[tuple[str, str]] = set()
-    rejected_forms: dict[str, int] = {}
-    if params.table:
-        table = recipe.resolve(params.table, "[stages.variants] table")
-        if table.exists():
-            exclude |= {(e.variant.casefold(), e.canonical.casefold()) for e in load_table(table)}
-        exclude |= load_rejected(rejected_path(table))
-        rejected_forms = load_rejected_forms(rejected_path(table))
-    protected = load_protected(recipe.resolve(params.protected, "[stages.variants] protected")) if params.protected else set()
-    wordlist = WordList(recipe.resolve(params.wordlist, "[stages.variants] wordlist")) if params.wordlist else None
-    with OutputLock(out), make_engine("local", None, None) as engine:
-        runner = Runner(recipe, Path(out), engine)
-        runner.run(until="filter")
-        docs = [d for key in runner.last_keys["filter"] for d in runner.cache.read_docs("filter", key)]
-    language = recipe.corpus.language
-    stats, contexts = collect(docs, language=language)
-    candidates = propose(stats, contexts, costs, recipe.corpus.letters, top, exclude, language=language,
-                         wordlist=wordlist, protected={fold_case(w, language) for w in protected},
-                         rejected_forms=rejected_forms)
-    write_sheet(Path(sheet), sheet_rows(candidates, stats), SHEET_COLUMNS)
-    return len(candidates)
-

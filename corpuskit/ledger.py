@@ -1,7 +1,9 @@
-"""The ledger: one row per removed or rewritten unit, and the conservation check.
+"""The ledger: one row per removed, merged or rewritten unit, and the conservation check.
 
-``documents in = documents kept + documents removed`` and the same for
-segments, where a removed document takes its remaining segments with it.
+``documents in = documents kept + documents removed``, and ``segments in =
+segments kept + segments removed + segments merged``, where a removed document
+takes its remaining segments with it and a merged segment's text lives on in
+the segment it was joined to (a transcript's cue fragments, a broken OCR line).
 """
 from __future__ import annotations
 
@@ -11,13 +13,13 @@ from typing import Any, Iterable
 
 import pyarrow as pa
 
-__all__ = ["LedgerRow", "LEDGER_SCHEMA", "remove_document", "remove_segment", "rewrite",
+__all__ = ["LedgerRow", "LEDGER_SCHEMA", "remove_document", "remove_segment", "merge_segment", "rewrite",
            "Counts", "count_partition", "conservation"]
 
 LEDGER_SCHEMA = pa.schema([
     ("stage", pa.string()),
     ("unit", pa.string()),          # document | segment
-    ("action", pa.string()),        # removed | rewritten
+    ("action", pa.string()),        # removed | merged | rewritten
     ("doc_id", pa.string()),
     ("seg_index", pa.int32()),      # position at ingest; -1 for a document row
     ("segments", pa.int32()),       # segments leaving with a removed document
@@ -73,6 +75,12 @@ def remove_segment(stage: str, doc: dict, position: int, reason: str, detail: st
                      scores[position] if position < len(scores) else None)
 
 
+def merge_segment(stage: str, doc: dict, position: int, reason: str, detail: str = "") -> LedgerRow:
+    """A segment joined into a neighbour: its text is not lost, so it is not a removal."""
+    return LedgerRow(stage, "segment", "merged", doc["id"], int(doc["seg_index"][position]), 1, reason, detail, None,
+                     doc["segments"][position][:500])
+
+
 def rewrite(stage: str, doc_id: str, seg_index: int, reason: str, detail: str = "", text: str | None = None) -> LedgerRow:
     return LedgerRow(stage, "segment" if seg_index >= 0 else "document", "rewritten", doc_id, seg_index, 0,
                      reason, detail, None, text)
@@ -86,15 +94,17 @@ class Counts:
     segs_out: int = 0
     removed: Counter | None = None      # reason -> documents or segments removed
     rewritten: Counter | None = None    # reason -> rewrites
+    merged: Counter | None = None       # reason -> segments joined into a neighbour
 
     def __post_init__(self) -> None:
         self.removed = Counter(self.removed or {})
         self.rewritten = Counter(self.rewritten or {})
+        self.merged = Counter(self.merged or {})
 
     def add(self, other: "Counts") -> "Counts":
         return Counts(self.docs_in + other.docs_in, self.docs_out + other.docs_out,
                       self.segs_in + other.segs_in, self.segs_out + other.segs_out,
-                      self.removed + other.removed, self.rewritten + other.rewritten)
+                      self.removed + other.removed, self.rewritten + other.rewritten, self.merged + other.merged)
 
     @property
     def docs_removed(self) -> int:
@@ -103,11 +113,11 @@ class Counts:
     def as_dict(self) -> dict[str, Any]:
         return {"docs_in": self.docs_in, "docs_out": self.docs_out, "segs_in": self.segs_in,
                 "segs_out": self.segs_out, "removed": dict(sorted(self.removed.items())),
-                "rewritten": dict(sorted(self.rewritten.items()))}
+                "rewritten": dict(sorted(self.rewritten.items())), "merged": dict(sorted(self.merged.items()))}
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> "Counts":
-        return cls(d["docs_in"], d["docs_out"], d["segs_in"], d["segs_out"], d["removed"], d["rewritten"])
+        return cls(d["docs_in"], d["docs_out"], d["segs_in"], d["segs_out"], d["removed"], d["rewritten"], d.get("merged"))
 
 
 def count_partition(docs_in: Iterable[dict], docs_out: Iterable[dict], rows: Iterable[LedgerRow | dict]) -> Counts:
@@ -119,6 +129,8 @@ def count_partition(docs_in: Iterable[dict], docs_out: Iterable[dict], rows: Ite
         key = f"{r['unit']}:{r['reason']}"
         if r["action"] == "removed":
             c.removed[key] += 1
+        elif r["action"] == "merged":
+            c.merged[key] += 1
         else:
             c.rewritten[key] += 1
     return c
@@ -129,13 +141,14 @@ def conservation(stage_ledgers: dict[str, dict[str, int]], docs_in: int, segs_in
     """Check in = kept + removed for documents and segments over a whole run.
 
     ``stage_ledgers`` maps each stage to its removal totals from the ledger:
-    ``{"documents": n, "segments_of_documents": m, "segments": k}``.
+    ``{"documents": n, "segments_of_documents": m, "segments": k, "segments_merged": j}``.
     """
     docs_removed = sum(v["documents"] for v in stage_ledgers.values())
     segs_removed = sum(v["segments"] + v["segments_of_documents"] for v in stage_ledgers.values())
+    segs_merged = sum(v.get("segments_merged", 0) for v in stage_ledgers.values())
     return {
         "documents": {"in": docs_in, "kept": docs_kept, "removed": docs_removed,
                       "holds": docs_in == docs_kept + docs_removed},
-        "segments": {"in": segs_in, "kept": segs_kept, "removed": segs_removed,
-                     "holds": segs_in == segs_kept + segs_removed},
+        "segments": {"in": segs_in, "kept": segs_kept, "removed": segs_removed, "merged": segs_merged,
+                     "holds": segs_in == segs_kept + segs_removed + segs_merged},
     }

@@ -15,6 +15,7 @@ import secrets
 import unicodedata
 from pathlib import Path
 
+from .casing import comparison_key
 from .errors import RecipeError
 
 __all__ = ["load_or_create_secret", "pseudonym", "pseudonymise_document", "PREFIX"]
@@ -50,7 +51,7 @@ def load_or_create_secret(path: Path) -> tuple[bytes, bool]:
 
 
 def _normal(name: str) -> str:
-    return " ".join(unicodedata.normalize("NFC", name).casefold().split())
+    return comparison_key(unicodedata.normalize("NFC", name))
 
 
 def pseudonym(name: str, key: bytes) -> str:

@@ -8,7 +8,6 @@ may not leave it unless ``[corpus] allow_outside_paths = true``.
 from __future__ import annotations
 
 import dataclasses
-import glob
 import hashlib
 import os
 import tomllib
@@ -17,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from .config import Checked, build, param, suggest as _suggest
+from .globs import glob_files, glob_prefix
 from .scripts import canonical_script
 from .errors import RecipeError
 
@@ -116,7 +116,7 @@ class Recipe:
         matches: list[Path] = []
         notes: list[str] = []
         seen: set[str] = set()
-        for i, name in enumerate(_glob_files(pattern)):
+        for i, name in enumerate(glob_files(pattern)):
             if i >= 4 * self.corpus.max_files_per_source or len(matches) >= self.corpus.max_files_per_source:
                 raise RecipeError(
                     f"{self.path}: {where} matches more than {self.corpus.max_files_per_source} files; "
@@ -150,65 +150,6 @@ class Recipe:
     def secret_path(self) -> Path:
         """Where the pseudonym secret lives (inside the recipe's folder unless allowed outside)."""
         return self.resolve(self.corpus.pseudonym_secret, "[corpus] pseudonym_secret")
-
-
-def _glob_regex(pattern: str):
-    """A glob as a regular expression over whole paths: ``**/`` any folders (or none), ``*`` and
-    ``?`` within one path part, ``[...]`` a character class."""
-    import re
-    out, i = [], 0
-    while i < len(pattern):
-        c = pattern[i]
-        if pattern.startswith("**/", i):
-            out.append("(?:[^/]*/)*")
-            i += 3
-            continue
-        if pattern.startswith("**", i):
-            out.append(".*")
-            i += 2
-            continue
-        if c == "*":
-            out.append("[^/]*")
-        elif c == "?":
-            out.append("[^/]")
-        elif c == "[" and "]" in pattern[i + 2:]:
-            end = pattern.index("]", i + 2)
-            body = pattern[i + 1:end]
-            out.append("[" + ("^" + body[1:] if body.startswith("!") else body).replace("\\", "\\\\") + "]")
-            i = end
-        else:
-            out.append(re.escape(c))
-        i += 1
-    return re.compile("".join(out) + r"\Z")
-
-
-def _glob_files(pattern: str):
-    """Paths matching ``pattern``.  Without ``**`` this is the standard glob; with it, a walk that
-    follows symlinked folders but enters each real folder once, so a link loop is walked once."""
-    if "**" not in pattern:
-        yield from glob.iglob(pattern)
-        return
-    root = os.path.dirname(glob_prefix(pattern)) or "."
-    matcher = _glob_regex(pattern)
-    visited: set[str] = set()
-    for dirpath, dirnames, filenames in os.walk(root, followlinks=True):
-        real = os.path.realpath(dirpath)
-        if real in visited:
-            dirnames[:] = []
-            continue
-        visited.add(real)
-        dirnames[:] = sorted(d for d in dirnames if not d.startswith("."))   # as glob: no hidden files
-        for name in sorted(f for f in filenames if not f.startswith(".")) + [d for d in dirnames if os.path.islink(os.path.join(dirpath, d))
-                                         and not os.path.isdir(os.path.join(dirpath, d))]:
-            full = os.path.join(dirpath, name)
-            if matcher.match(full):
-                yield full
-
-
-def glob_prefix(pattern: str) -> str:
-    """The part of a glob before its first wildcard."""
-    cut = min([i for i in (pattern.find(c) for c in "*?[") if i >= 0], default=len(pattern))
-    return pattern[:cut]
 
 
 def resolve_inside(folder: Path, value: str, key: str, recipe_path: Path, allowed: bool) -> Path:
@@ -289,7 +230,7 @@ def load_recipe(path: str | os.PathLike) -> Recipe:
     for key in stage_tables:
         if key not in STAGES:
             raise RecipeError(f"{path}: [stages] has unknown stage '{key}'{_suggest(key, STAGES)}")
-    stages = {name: build(stage.Params, stage_tables.get(name, {}), f"[stages.{name}]", path)
+    stages = {name: build(stage.params, stage_tables.get(name, {}), f"[stages.{name}]", path)
               for name, stage in STAGES.items()}
     return Recipe(path=path.resolve(), sha256=hashlib.sha256(raw).hexdigest(), corpus=corpus,
                   sources=tuple(sources), stages=stages)

@@ -72,8 +72,8 @@ def render() -> str:
     for fmt, module in READERS.items():
         out += _table(f'[sources.options] for format = "{fmt}"', module.Options)
     for name, stage in STAGES.items():
-        if dataclasses.fields(stage.Params):
-            out += _table(f"[stages.{name}]", stage.Params)
+        if dataclasses.fields(stage.params):
+            out += _table(f"[stages.{name}]", stage.params)
     return "\n".join(out).rstrip() + "\n"
 
 

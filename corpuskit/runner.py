@@ -9,7 +9,6 @@ stages that must see everything), and a killed run resumes where it stopped.
 from __future__ import annotations
 
 import contextlib
-import dataclasses
 import fcntl
 import json
 import os
@@ -22,16 +21,11 @@ from typing import Any, Callable
 from .errors import DataError, LockedError, RecipeError
 from .ledger import Counts, count_partition
 from .recipe import Recipe, SourceSpec
-from .stages.registry import GLOBAL_STAGES, MAP_STAGES, STAGE_ORDER, STAGES
+from .stages.contract import Applied, Figures, Kind, Partition, Services, module_version, partition_key, survey_key
+from .stages.registry import STAGE_ORDER, STAGES
 from .storage import Cache, file_sha256, stable_hash
 
-__all__ = ["Runner", "RunResult", "Partition", "run_map_task", "run_survey_task", "OutputLock"]
-
-
-@dataclass(frozen=True)
-class Partition:
-    source: str
-    key: str
+__all__ = ["Runner", "RunResult", "StageReport", "Partition", "run_map_task", "run_survey_task", "OutputLock"]
 
 
 @dataclass
@@ -41,6 +35,7 @@ class StageReport:
     computed: int = 0          # partitions computed in this run
     reused: int = 0            # partitions taken from the cache
     seconds: float = 0.0
+    figures: Figures | None = None   # the stage's typed figures, summed over its partitions
 
 
 @dataclass
@@ -137,37 +132,35 @@ def run_map_task(cache_root: str, stage_name: str, params: Any, ctx: Any, in_sta
     n_in = len(docs)
     segs_in = sum(len(d["segments"]) for d in docs)
     started = time.perf_counter()
-    out, rows = stage.apply(docs, params, ctx)
+    result = stage.apply(docs, params, ctx)
+    if not isinstance(result, Applied):
+        raise TypeError(f"stage '{stage_name}': apply must return Applied(docs, rows[, figures]), not {type(result).__name__}")
+    out, rows, figures = result
     counts = count_partition([], out, rows)
     counts.docs_in, counts.segs_in = n_in, segs_in
-    _check_partition(stage_name, in_key, n_in, segs_in, out, rows)
-    cache.write_partition(stage_name, out_key, out, rows, {"counts": counts.as_dict(), "docs": n_in,
-                                                          "seconds": time.perf_counter() - started})
+    check_partition(stage_name, in_key, n_in, segs_in, out, rows)
+    marker = {"counts": counts.as_dict(), "docs": n_in, "seconds": time.perf_counter() - started}
+    if figures is not None:
+        marker["figures"] = figures.as_dict()
+    cache.write_partition(stage_name, out_key, out, rows, marker)
     return {"counts": counts.as_dict()}
 
 
 def run_survey_task(cache_root: str, stage_name: str, params: Any, in_stage: str, in_key: str) -> Any:
     """One partition's part of a per-source survey (e.g. the lines repeated at page edges)."""
-    return STAGES[stage_name].survey_partition(Cache(Path(cache_root).parent).read_docs(in_stage, in_key), params)
+    return STAGES[stage_name].survey.partition(Cache(Path(cache_root).parent).read_docs(in_stage, in_key), params)
 
 
-def _check_partition(stage_name: str, key: str, n_in: int, segs_in: int, docs_out: list, rows: list) -> None:
+def check_partition(stage_name: str, key: str, n_in: int, segs_in: int, docs_out: list, rows: list) -> None:
     """A stage may not lose a document or segment without a ledger row."""
     removed_docs = [r for r in rows if r.unit == "document" and r.action == "removed"]
-    removed_segs = sum(1 for r in rows if r.unit == "segment" and r.action == "removed")
+    removed_segs = sum(1 for r in rows if r.unit == "segment" and r.action in ("removed", "merged"))
     segs_out = sum(len(d["segments"]) for d in docs_out)
     if n_in != len(docs_out) + len(removed_docs) or \
             segs_in != segs_out + removed_segs + sum(r.segments for r in removed_docs):
         raise DataError(f"stage '{stage_name}' lost units without a ledger row in partition {key} "
                         f"(documents {n_in} -> {len(docs_out)} + {len(removed_docs)} removed; "
-                        f"segments {segs_in} -> {segs_out} + {removed_segs} removed); this is a bug, please report it.")
-
-
-def stage_version(module) -> str:
-    """What a cache key knows of a stage's code: its VERSION and a hash of its source and every
-    corpuskit module it uses (see codeversion), so editing a helper cannot leave results stale."""
-    from .codeversion import code_version
-    return f"{getattr(module, 'VERSION', '1')}:{code_version(module.__name__)}"
+                        f"segments {segs_in} -> {segs_out} + {removed_segs} removed or merged); this is a bug, please report it.")
 
 
 WRONG_SCRIPT_SHARE = 0.9    # a stage that removes this share of segments for their script stops the run
@@ -195,9 +188,9 @@ class Runner:
         self.cache = Cache(self.out)
         self.engine = engine
         self.progress = progress or _quiet_progress
-        self.warnings: list[str] = []
-        self.last_keys: dict[str, list[str]] = {}
-        self.langid_report: str | None = None
+        self.services = Services(self.recipe, self.out, self.cache, engine, self.progress)
+        self.warnings = self.services.warnings           # shared with the stages through services
+        self.last_keys = self.services.last_keys
 
     # planning ---------------------------------------------------------------------------
     def ingest_units(self) -> list[tuple[SourceSpec, list[tuple[str, str]], str]]:
@@ -213,7 +206,7 @@ class Runner:
             reader = READERS[source.format]
             for group in groups:
                 fingerprints = [(rel, file_sha256(Path(p))) for p, rel in group]
-                key = stable_hash("ingest", stage_version(ingest), stage_version(reader), source, fingerprints,
+                key = stable_hash("ingest", module_version(ingest), module_version(reader), source, fingerprints,
                                   self.recipe.corpus.partition_docs)
                 units.append((source, [(str(p), rel) for p, rel in group], key))
         return units
@@ -232,13 +225,16 @@ class Runner:
         stage_in = "ingest"
         for name in STAGE_ORDER[1:STAGE_ORDER.index(last) + 1]:
             execute = not only or only == name
-            if name in MAP_STAGES:
+            kind = STAGES[name].kind
+            if kind is Kind.MAP:
                 parts = self._map_stage(name, stage_in, parts, reports, execute)
                 _check_script_removals(self.recipe, reports[-1])
-            elif name in GLOBAL_STAGES:
+            elif kind is Kind.GLOBAL:
                 parts = self._global_stage(name, stage_in, parts, reports, execute)
-            elif name == "export":
+            elif kind is Kind.EXPORT:
                 return self._export(stage_in, parts, reports)
+            else:
+                raise RecipeError(f"stage '{name}' of kind '{kind.value}' cannot follow ingest")
             stage_in = name
         return RunResult(self.out, reports, warnings=self.warnings)
 
@@ -269,7 +265,8 @@ class Runner:
             report.counts = report.counts.add(Counts.from_dict(marker["counts"]))
             parts.extend(Partition(source.id, k) for k in marker["parts"])
         report.computed, report.reused = len(todo), len(units) - len(todo)
-        self.last_keys = {"ingest": [p.key for p in parts]}
+        self.last_keys.clear()
+        self.last_keys["ingest"] = [p.key for p in parts]
         self.warnings.extend(f"ingest: {reason} x{n} (first: {first}); the rows are in private/ledger.jsonl.gz, "
                              "stage ingest" for reason, (n, first) in sorted(trouble.items()))
         report.seconds = time.perf_counter() - started
@@ -287,8 +284,13 @@ class Runner:
             for i, result in self.engine.imap(run_map_task, args):
                 tick(result["counts"]["docs_in"])
         self._rest(bool(todo))
+        figures_type = STAGES[name].figures
         for p, k, _ in jobs:
-            report.counts = report.counts.add(Counts.from_dict(self.cache.marker(name, k)["counts"]))
+            marker = self.cache.marker(name, k)
+            report.counts = report.counts.add(Counts.from_dict(marker["counts"]))
+            if figures_type is not None:
+                part = figures_type.from_dict(marker.get("figures", {}))
+                report.figures = part if report.figures is None else report.figures.merge(part)
         report.computed, report.reused = len(todo), len(jobs) - len(todo)
         self.last_keys[name] = [k for _, k, _ in jobs]
         return [Partition(p.source, k) for p, k, _ in jobs]
@@ -301,17 +303,14 @@ class Runner:
         started = time.perf_counter()
         ctx_key = stage.context_key(self.recipe, params)
         self.cache.use_context(name, ctx_key)
-        if name == "langid":
-            self.langid_report = f"report-{ctx_key}.json"
+        self.services.context_keys[name] = ctx_key
         surveys: dict[str, tuple[str, Any]] = {}
-        if hasattr(stage, "survey_partition"):
+        if stage.survey is not None:
             for source in self.recipe.sources:
-                in_keys = [p.key for p in parts if p.source == source.id]
-                skey = stable_hash(name, stage_version(stage), params, ctx_key, in_keys)
+                skey = survey_key(stage, params, ctx_key, [p.key for p in parts if p.source == source.id])
                 surveys[source.id] = (skey, None)
                 self.cache.use(name, f"survey-{skey}")
-        keys = {p.key: stable_hash(name, stage_version(stage), params, ctx_key,
-                                   surveys.get(p.source, ("", None))[0], p.key) for p in parts}
+        keys = {p.key: partition_key(stage, params, p.key, ctx_key, surveys.get(p.source, ("", None))[0]) for p in parts}
         missing = [p for p in parts if not self.cache.done(name, keys[p.key])]
         ctx = None
         if missing and execute:
@@ -320,8 +319,8 @@ class Runner:
             done = self._surveys(name, stage, params, in_stage, parts, {s: surveys[s][0] for s in needed})
             for source_id in needed:
                 surveys[source_id] = (surveys[source_id][0], done[source_id])
-        jobs = [(p, keys[p.key], stage.partition_context(ctx, surveys.get(p.source, ("", None))[1])
-                 if hasattr(stage, "partition_context") else ctx) for p in parts]
+        jobs = [(p, keys[p.key], stage.survey.context(ctx, surveys.get(p.source, ("", None))[1])
+                 if stage.survey is not None else ctx) for p in parts]
         out = self._run_partitions(name, in_stage, jobs, report, execute)
         report.seconds = time.perf_counter() - started
         reports.append(report)
@@ -330,8 +329,8 @@ class Runner:
     def _rest(self, worked: bool) -> None:
         """After a step that did work: the engine frees what it can (large workers exit, heaps
         are trimmed), so a stage's leftovers do not add up over the run."""
-        if worked and hasattr(self.engine, "rest"):
-            self.engine.rest()
+        if worked:
+            self.services.rest()
 
     def _surveys(self, name, stage, params, in_stage, parts, survey_keys: dict[str, str]) -> dict[str, Any]:
         """Per source, its survey: from the cache, or from its partitions' parts computed on the
@@ -349,7 +348,7 @@ class Runner:
         self._rest(bool(args))
         start = 0
         for source_id, keys in todo.items():
-            survey = stage.merge_surveys(partials[start:start + len(keys)], params)
+            survey = stage.survey.merge(partials[start:start + len(keys)], params)
             start += len(keys)
             self.cache.put_json(name, f"survey-{survey_keys[source_id]}.json", survey)
             # the same values a later run reads back from the cache (tuples become lists), without the read
@@ -362,9 +361,11 @@ class Runner:
         params = self.recipe.stages[name]
         report = StageReport(name)
         started = time.perf_counter()
-        decisions = stage.decide(self, in_stage, parts, params)
+        decisions = stage.decide(self.services, in_stage, parts, params)
+        self.cache.put_json(name, "report.json", decisions.report)
         self._rest(True)
-        jobs = [(p, stable_hash(name, stage_version(stage), params, p.key, decisions[p.key]), decisions[p.key]) for p in parts]
+        jobs = [(p, partition_key(stage, params, p.key, decision=decisions.per_partition[p.key]),
+                 decisions.per_partition[p.key]) for p in parts]
         out = self._run_partitions(name, in_stage, jobs, report, execute)
         report.seconds = time.perf_counter() - started
         reports.append(report)
@@ -373,12 +374,11 @@ class Runner:
     def _export(self, in_stage: str, parts: list[Partition], reports: list[StageReport]) -> RunResult:
         from .stages import export
         started = time.perf_counter()
-        result = export.write_outputs(self, in_stage, parts, reports)
-        pieces = getattr(self, "export_pieces", {"computed": 1, "reused": 0})
-        report = StageReport("export", counts=result.pop("counts"), computed=pieces["computed"], reused=pieces["reused"])
+        result = export.write_outputs(self.services, in_stage, parts, reports)
+        report = StageReport("export", counts=result.counts, computed=result.pieces_computed, reused=result.pieces_reused)
         report.seconds = time.perf_counter() - started
         reports.append(report)
-        res = RunResult(self.out, reports, result["conservation"], result["manifest"], warnings=self.warnings)
+        res = RunResult(self.out, reports, result.conservation, result.manifest, warnings=self.warnings)
         for stage, keys in self.last_keys.items():  # partitions that workers read and wrote
             for key in keys:
                 self.cache.use(stage, key)
@@ -394,11 +394,3 @@ class Runner:
         lines.extend(f"warning: {w}" for w in self.warnings)
         with open(self.out / "run.log", "a", encoding="utf-8") as f:
             f.write(time.strftime("%Y-%m-%dT%H:%M:%S ") + "\n".join(lines) + "\n\n")
-
-
-def stage_params_dict(params: Any) -> dict:
-    return dataclasses.asdict(params) if dataclasses.is_dataclass(params) else dict(params)
-
-
-def describe_params(recipe: Recipe) -> str:
-    return json.dumps({k: stage_params_dict(v) for k, v in recipe.stages.items()}, sort_keys=True, default=str)

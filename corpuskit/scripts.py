@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from functools import lru_cache
 
-__all__ = ["canonical_script", "unicode_scripts", "VARIANTS"]
+__all__ = ["canonical_script", "unicode_scripts", "char_script", "char_extensions", "VARIANTS"]
 
 VARIANTS: dict[str, tuple[str, ...]] = {
     "Aran": ("Arab",), "Latf": ("Latn",), "Latg": ("Latn",), "Syre": ("Syrc",), "Syrj": ("Syrc",),
@@ -51,3 +51,17 @@ def unicode_scripts(code: str) -> tuple[str, ...]:
     except KeyError:
         return ()
     return (code,)
+
+
+@lru_cache(maxsize=65536)
+def char_script(ch: str) -> str:
+    """The Unicode Script property (ISO 15924 code) of one character (UAX #24), from fontTools' data."""
+    from fontTools import unicodedata as ucd
+    return ucd.script(ch)
+
+
+@lru_cache(maxsize=65536)
+def char_extensions(ch: str) -> frozenset[str]:
+    """The Script_Extensions of one character: the scripts a Common or Inherited mark is used with."""
+    from fontTools import unicodedata as ucd
+    return frozenset(ucd.script_extension(ch))

@@ -4,9 +4,10 @@ from __future__ import annotations
 from pathlib import Path
 
 from .recipe import Recipe
-from .runner import Partition, Runner, stage_version
+from .runner import Runner
+from .stages.contract import Partition, partition_key, survey_key
 from .stages.registry import GLOBAL_STAGES, MAP_STAGES, STAGES
-from .storage import Cache, stable_hash
+from .storage import Cache
 
 
 def stage_status(recipe: Recipe, out: Path) -> list[tuple[str, str, str]]:
@@ -26,11 +27,10 @@ def stage_status(recipe: Recipe, out: Path) -> list[tuple[str, str, str]]:
         stage, params = STAGES[name], recipe.stages[name]
         ctx_key = stage.context_key(recipe, params)
         surveys = {}
-        if hasattr(stage, "survey_partition"):
+        if stage.survey is not None:
             for s in recipe.sources:
-                surveys[s.id] = stable_hash(name, stage_version(stage), params, ctx_key,
-                                            [p.key for p in parts if p.source == s.id])
-        keys = [stable_hash(name, stage_version(stage), params, ctx_key, surveys.get(p.source, ""), p.key) for p in parts]
+                surveys[s.id] = survey_key(stage, params, ctx_key, [p.key for p in parts if p.source == s.id])
+        keys = [partition_key(stage, params, p.key, ctx_key, surveys.get(p.source, "")) for p in parts]
         stale = [k for k in keys if not cache.done(name, k)]
         if stale:
             rows.append((name, "stale", f"{len(stale)} of {len(keys)} partitions to compute (inputs, parameters, "

@@ -55,7 +55,7 @@ def _exists(recipe, value: str, key: str) -> Path:
 def _tables(recipe) -> None:
     from . import variants_table as vt
     from .discovery import load_costs
-    from .stages import transliterate as translit
+    from . import transliterate as translit
     from .stages.script import same_script
 
     for label, value in recipe.stages["script"].tables.items():

@@ -33,7 +33,7 @@ def survey_of(docs: list[dict], cuts: list[int]) -> dict:
 
 
 def removed(docs: list[dict], survey: dict) -> dict[str, str]:
-    _, rows = clean.apply([dict(d, segments=list(d["segments"])) for d in docs], PARAMS,
+    _, rows, _ = clean.apply([dict(d, segments=list(d["segments"])) for d in docs], PARAMS,
                           clean.partition_context(None, survey))
     return {f"{r.doc_id}:{r.seg_index}": r.reason for r in rows if r.action == "removed"}
 
@@ -62,7 +62,7 @@ def test_a_forwarded_copy_points_to_the_first_message_in_any_partitioning(cuts):
     survey = survey_of(docs, cuts)
     # Only texts that some forwarded message has are kept: three here.
     assert len(survey["first"]) == 3
-    _, rows = clean.apply([dict(d, segments=list(d["segments"])) for d in docs], PARAMS,
+    _, rows, _ = clean.apply([dict(d, segments=list(d["segments"])) for d in docs], PARAMS,
                           clean.partition_context(None, survey))
     copies = {r.doc_id: r.dup_of for r in rows if r.reason == "forwarded-copy"}
     # msg 1 repeats msg 0; msg 3 is forwarded before the plain msg 4 (kept, first of its text);

@@ -5,7 +5,7 @@ import numpy as np
 from hypothesis import given, settings, strategies as st
 
 from corpuskit.reports.balance import Accumulator
-from corpuskit.stages._pieces import EMPTY_GZIP, SampleMerger, join_sections, line_priority, shard_groups
+from corpuskit.stages.export_pieces import EMPTY_GZIP, SampleMerger, join_sections, line_priority, shard_groups
 
 
 def _sample(pieces: list[list[tuple[str, int, str]]], k: int) -> list[str]:

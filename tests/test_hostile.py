@@ -20,8 +20,8 @@ from corpuskit import storage
 from corpuskit.api import load_ledger, run
 from corpuskit.errors import CorpusError, DataError, RecipeError
 from corpuskit.readers import READERS
-from corpuskit.readers import _decode
-from corpuskit.readers._decode import TextFile, split_lines
+from corpuskit.readers import decode as _decode
+from corpuskit.readers.decode import TextFile, split_lines
 from corpuskit.recipe import SourceSpec, build, load_recipe
 from corpuskit.stages import ingest
 from corpuskit.variants_table import neutralise_cell

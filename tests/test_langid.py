@@ -85,18 +85,18 @@ CONTACT = "Zenfal quarhu xo porjix trivos clequa."
 
 
 def test_contact_segment_inside_a_target_document_is_removed(model_path):
-    kept, rows = langid.apply([doc([TARGET, CONTACT, TARGET2])], langid.Params(), ctx(model_path))
+    kept, rows, _ = langid.apply([doc([TARGET, CONTACT, TARGET2])], langid.Params(), ctx(model_path))
     assert kept[0]["segments"] == [TARGET, TARGET2]
     assert [(r.unit, r.reason, r.seg_index) for r in rows] == [("segment", "lang:qtm", 1)]
 
 
 def test_document_mostly_in_the_contact_language_is_dropped_whole(model_path):
-    kept, rows = langid.apply([doc([CONTACT, CONTACT, CONTACT, TARGET])], langid.Params(min_share=0.3), ctx(model_path))
+    kept, rows, _ = langid.apply([doc([CONTACT, CONTACT, CONTACT, TARGET])], langid.Params(min_share=0.3), ctx(model_path))
     assert kept == [] and rows[0].unit == "document" and rows[0].segments == 4
 
 
 def test_short_segments_follow_their_neighbours(model_path):
-    kept, rows = langid.apply([doc([TARGET, "ok 12", "🙂", CONTACT, "www.example.org"])], langid.Params(), ctx(model_path))
+    kept, rows, _ = langid.apply([doc([TARGET, "ok 12", "🙂", CONTACT, "www.example.org"])], langid.Params(), ctx(model_path))
     labels = kept[0]["seg_lang"]
     # "ok 12" and the emoji follow the target segment before them; the URL follows the contact one.
     assert kept[0]["segments"] == [TARGET, "ok 12", "🙂"]
@@ -104,7 +104,7 @@ def test_short_segments_follow_their_neighbours(model_path):
 
 
 def test_a_script_the_language_never_uses_is_decided_without_the_classifier(model_path):
-    kept, rows = langid.apply([doc([TARGET, "Ключ к двери лежит"], ["Latn", "Cyrl"])], langid.Params(), ctx(model_path))
+    kept, rows, _ = langid.apply([doc([TARGET, "Ключ к двери лежит"], ["Latn", "Cyrl"])], langid.Params(), ctx(model_path))
     assert kept[0]["segments"] == [TARGET] and rows[0].reason == "lang:script:Cyrl"
 
 
@@ -138,31 +138,31 @@ def test_a_supplied_model_replaces_training(tmp_path, model_path):
 
 def test_short_segments_pass_the_script_gate(model_path):
     """A segment too short to classify is still refused when its script is not the language's."""
-    kept, rows = langid.apply([doc([TARGET, "한국", "ок"], ["Latn", "Hang", "Cyrl"])], langid.Params(), ctx(model_path))
+    kept, rows, _ = langid.apply([doc([TARGET, "한국", "ок"], ["Latn", "Hang", "Cyrl"])], langid.Params(), ctx(model_path))
     assert kept[0]["segments"] == [TARGET]
     assert sorted(r.reason for r in rows) == ["lang:script:Cyrl", "lang:script:Hang"]
 
 
 def test_target_lines_of_a_mostly_contact_document_are_kept_by_default(model_path):
-    kept, rows = langid.apply([doc([CONTACT, CONTACT.replace("xo", "vos"), TARGET, CONTACT.upper()])], langid.Params(),
+    kept, rows, _ = langid.apply([doc([CONTACT, CONTACT.replace("xo", "vos"), TARGET, CONTACT.upper()])], langid.Params(),
                               ctx(model_path))
     assert kept[0]["segments"] == [TARGET] and {r.unit for r in rows} == {"segment"}
 
 
 def test_whole_document_removal_counts_the_target_lines_it_takes(model_path):
-    kept, rows = langid.apply([doc([CONTACT, CONTACT, CONTACT, TARGET])], langid.Params(min_share=0.3), ctx(model_path))
+    kept, rows, _ = langid.apply([doc([CONTACT, CONTACT, CONTACT, TARGET])], langid.Params(min_share=0.3), ctx(model_path))
     assert kept == [] and rows[0].target_segments == 1 and rows[0].lang == "qtm"
 
 
 def test_a_source_with_a_declared_language_is_not_classified(model_path):
     declared = {**ctx(model_path), "declared": {"t": "qnv"}}
-    kept, rows = langid.apply([doc([CONTACT, TARGET])], langid.Params(), declared)
+    kept, rows, _ = langid.apply([doc([CONTACT, TARGET])], langid.Params(), declared)
     assert kept[0]["segments"] == [CONTACT, TARGET] and rows == [] and kept[0]["seg_lang"] == ["qnv", "qnv"]
 
 
 def test_a_line_that_switches_language_part_way_is_kept(model_path):
     line = f"{TARGET[:-1]} {TARGET2[:-1]} zenfal quarhu xo porjix trivos clequa zem"
-    kept, _ = langid.apply([doc([line])], langid.Params(), ctx(model_path))
+    kept, _, _ = langid.apply([doc([line])], langid.Params(), ctx(model_path))
     assert kept and kept[0]["segments"] == [line]
 
 

@@ -15,7 +15,7 @@ from corpuskit.api import load_corpus, load_ledger, load_report, run
 from corpuskit.cli import app
 from corpuskit.ledger import count_partition, remove_document, remove_segment
 from corpuskit.records import new_document
-from corpuskit.runner import _check_partition
+from corpuskit.runner import check_partition
 
 from .conftest import ROOT, copy_demo
 
@@ -167,7 +167,7 @@ def test_conservation_holds_for_random_drop_and_rewrite(docs_segments, seed):
                 rows.append(remove_segment("t", d, i, "random"))
         d["segments"] = [s.upper() for s, k in zip(d["segments"], keep) if k]
         out.append(d)
-    _check_partition("t", "k", n_in, segs_in, out, rows)  # raises if anything is unaccounted for
+    check_partition("t", "k", n_in, segs_in, out, rows)  # raises if anything is unaccounted for
     c = count_partition([], out, rows)
     assert n_in == c.docs_out + sum(1 for r in rows if r.unit == "document")
 

@@ -5,10 +5,12 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
+from corpuskit import minhash
+from corpuskit import lsh
 from corpuskit.api import load_corpus
 from corpuskit.stages import split as split_stage
-from corpuskit.stages.dedup import (batch_shingle_hashes, batch_signatures, clusters_from_pairs,
-                                    permutations, shingle_hashes, signature)
+from corpuskit.stages.dedup import clusters_from_pairs
+from corpuskit.minhash import batch_shingle_hashes, batch_signatures, permutations, shingle_hashes, signature
 from corpuskit.pii import scrub
 from corpuskit.stages.qualityfilter import Params as FParams, apply as filter_apply, segment_problem
 
@@ -39,7 +41,7 @@ def test_clean_segment_passes_every_filter():
 
 def test_repeated_lines_drop_the_document_with_a_ledger_row():
     doc = {"id": "s:1", "source": "s", "segments": ["ŋɔ bɛli kamɛ tabu"] * 4, "seg_index": [0, 1, 2, 3]}
-    kept, rows = filter_apply([doc], FParams(), {"target_script": "Latn", "regions": []})
+    kept, rows, _ = filter_apply([doc], FParams(), {"target_script": "Latn", "regions": []})
     assert kept == [] and [(r.reason, r.unit, r.segments) for r in rows] == [("repeated-lines", "document", 4)]
 
 
@@ -66,7 +68,7 @@ def test_id_number_pattern_from_the_recipe():
 
 def test_drop_document_policy_removes_documents_with_personal_data():
     doc = {"id": "s:1", "source": "s", "segments": ["ŋɔ bɛli kamɛ tabu +99 412 555 0199"], "seg_index": [0]}
-    kept, rows = filter_apply([doc], FParams(pii="drop-document"), {"target_script": "Latn", "regions": []})
+    kept, rows, _ = filter_apply([doc], FParams(pii="drop-document"), {"target_script": "Latn", "regions": []})
     assert kept == [] and rows[-1].reason == "personal-data" and rows[-1].unit == "document"
 
 
@@ -162,16 +164,15 @@ def _datasketch_candidates(sigs, bands, rows):
     """Reference: the pairs sharing a bucket in datasketch's own MinHashLSH index, built from the
     same hash values (LeanMinHash, scheme affine32) with the same bands and rows."""
     from datasketch import LeanMinHash, MinHashLSH
-    from corpuskit.stages import dedup
-    lsh = MinHashLSH(num_perm=sigs.shape[1], params=(bands, rows))
-    with lsh.insertion_session() as session:
+    index = MinHashLSH(num_perm=sigs.shape[1], params=(bands, rows))
+    with index.insertion_session() as session:
         for i, sig in enumerate(sigs):
-            session.insert(i, LeanMinHash(seed=dedup.SCHEME_SEED, hashvalues=sig, scheme="affine32"), check_duplication=False)
+            session.insert(i, LeanMinHash(seed=minhash.SCHEME_SEED, hashvalues=sig, scheme="affine32"), check_duplication=False)
     pairs = set()
-    for table in lsh.hashtables:
+    for table in index.hashtables:
         for key in table.keys():
             members = sorted(table.get(key))
-            if len(members) > dedup.FULL_BUCKET:   # large buckets link each member to the first only
+            if len(members) > lsh.FULL_BUCKET:   # large buckets link each member to the first only
                 pairs.update((members[0], m) for m in members[1:])
             else:
                 pairs.update((a, b) for x, a in enumerate(members) for b in members[x + 1:])
@@ -185,7 +186,7 @@ def test_sorted_band_keys_give_the_candidates_of_datasketchs_index():
     noisy = base[:120] ^ ((rng.random((120, 128)) < 0.3) * np.uint32(7)).astype(np.uint32)
     sigs = np.concatenate([base, noisy, np.repeat(base[:1], 80, axis=0)])   # and one bucket of 81 copies
     eligible = np.ones(len(sigs), bool)
-    bands, rows = dedup.lsh_params(0.5, 128)
+    bands, rows = lsh.lsh_params(0.5, 128)
     with_index = _datasketch_candidates(sigs, bands, rows)
     by_sorting = dedup.candidate_pairs(sigs, eligible, bands, rows)
     assert np.array_equal(with_index, by_sorting) and len(with_index) > 100
@@ -233,7 +234,7 @@ def test_signature_set_reads_partition_files_like_one_array(tmp_path):
     assert data.ids(rows) == [facts[r][0] for r in rows]
     assert [data.partition_of(r) for r in (0, 6, 7, 18, 19, 23)] == ["a", "a", "c", "c", "d", "d"]
     every = np.arange(24)
-    assert np.array_equal(data.band_keys(every, 4, 8), dedup.band_keys(sigs, 4, 8))
+    assert np.array_equal(data.band_keys(every, 4, 8), lsh.band_keys(sigs, 4, 8))
     assert [data.source_names[c] for c in data.source] == [f[1] for f in facts]
 
 

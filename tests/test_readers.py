@@ -4,7 +4,7 @@ import io
 import json
 
 from corpuskit.readers import READERS
-from corpuskit.readers._decode import TextFile
+from corpuskit.readers.decode import TextFile
 from corpuskit.recipe import build, load_recipe
 
 from .conftest import ROOT

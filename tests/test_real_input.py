@@ -10,10 +10,11 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
+from corpuskit import minhash
 from corpuskit.api import load_corpus, load_ledger, run
 from corpuskit.cli import app
 from corpuskit.errors import RecipeError
-from corpuskit.readers._decode import TextFile
+from corpuskit.readers.decode import TextFile
 from corpuskit.recipe import load_recipe
 from corpuskit.stages import dedup
 
@@ -83,7 +84,7 @@ def test_lone_cr_crlf_lf_and_nel_each_end_a_line(tmp_path):
 
 
 def test_crlf_split_between_read_chunks_is_one_break(tmp_path, monkeypatch):
-    from corpuskit.readers import _decode
+    from corpuskit.readers import decode as _decode
     monkeypatch.setattr(_decode, "CHUNK_BYTES", 7)
     p = tmp_path / "a.txt"
     p.write_bytes("\r\n".join(LINES[:3]).encode())
@@ -121,9 +122,9 @@ def test_symlink_loops_and_dangling_links(tmp_path):
 
 
 def test_a_long_line_is_cut_with_a_row_and_a_long_document_hashed_in_windows(tmp_path, monkeypatch):
-    from corpuskit.readers import _decode
+    from corpuskit.readers import decode as _decode
     monkeypatch.setattr(_decode, "MAX_LINE_BYTES", 1 << 16)
-    monkeypatch.setattr(dedup, "LONG_TEXT", 1 << 14)
+    monkeypatch.setattr(minhash, "LONG_TEXT", 1 << 14)
     line = " ".join(LINES * 2000)                              # about 580 KB on one line
     result = whole_run(tmp_path, {"long.txt": line + "\n" + LINES[5] + "\n"}, options={"unit": "file"},
                        stages="[stages.filter]\nmax_chars = 10000000\nmax_repeated_lines = 1.0")
@@ -135,13 +136,13 @@ def test_a_long_line_is_cut_with_a_row_and_a_long_document_hashed_in_windows(tmp
 def test_memory_of_signatures_for_one_huge_document_is_bounded():
     text = " ".join(LINES) * 40000                             # about 11 MB of text
     tracemalloc.start()
-    hashes = dedup.shingles_of_texts([text], 5, "char")
-    a, b = dedup.permutations(128)
-    sig = dedup.batch_signatures(hashes, a, b)
+    hashes = minhash.shingles_of_texts([text], 5, "char")
+    a, b = minhash.permutations(128)
+    sig = minhash.batch_signatures(hashes, a, b)
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     assert peak < 400 << 20, peak          # the whole-text way needed several GB for 50 MB
-    assert np.array_equal(sig[0], dedup.signature(np.unique(hashes[0]), a, b))
+    assert np.array_equal(sig[0], minhash.signature(np.unique(hashes[0]), a, b))
 
 
 # -- readers ---------------------------------------------------------------------------------------

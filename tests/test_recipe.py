@@ -150,7 +150,7 @@ def test_cache_keys_follow_the_code_of_helper_modules():
     """A stage's cache key covers its module and every corpuskit module it imports: helpers that carry
     no VERSION of their own (transliteration, protected spans, the variant table) are included."""
     from corpuskit.codeversion import code_version, imported_modules
-    assert {"corpuskit.stages.transliterate", "corpuskit.protect"} <= imported_modules("corpuskit.stages.script")
+    assert {"corpuskit.transliterate", "corpuskit.protect"} <= imported_modules("corpuskit.stages.script")
     assert "corpuskit.variants_table" in imported_modules("corpuskit.stages.variants")
     assert "corpuskit.pii" in imported_modules("corpuskit.stages.qualityfilter")
     assert code_version("corpuskit.stages.script") != code_version("corpuskit.stages.dedup")

@@ -11,7 +11,7 @@ from hypothesis import given, strategies as st
 
 from corpuskit.recipe import CONSENT_SCOPES, SourceSpec, build
 from corpuskit.stages.export import destination
-from corpuskit.stages.tokenizer import train_tokenizer
+from corpuskit.tokenizer import train_tokenizer
 
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 

@@ -5,6 +5,8 @@ import json
 import unicodedata
 
 import pytest
+
+from corpuskit.errors import DataError
 from typer.testing import CliRunner
 
 from corpuskit import discovery as D
@@ -98,7 +100,7 @@ def test_review_round_trip_through_the_cli(tmp_path):
 def test_a_bad_decision_names_the_line(tmp_path):
     sheet = tmp_path / "s.csv"
     sheet.write_text("decision,variant,canonical\naccept,ngo,ŋɔ\nmaybe,ke,kɛ\n", "utf-8")
-    with pytest.raises(Exception, match="line 3"):
+    with pytest.raises(DataError, match=r"s\.csv line 3: decision 'maybe'"):
         D.accept_sheet(sheet, tmp_path / "t.tsv", tmp_path / "r.tsv")
 
 

@@ -150,7 +150,7 @@ def test_inventory_skips_placeholders_and_cuts_examples_between_graphemes():
 
 def test_subtitle_cues_grouped_by_minutes(tmp_path):
     from corpuskit.readers import srt
-    from corpuskit.readers._decode import TextFile
+    from corpuskit.readers.decode import TextFile
     cues = "".join(f"{i + 1}\n00:{i:02d}:00,000 --> 00:{i:02d}:05,000\nLine number {i} of the talk.\n\n" for i in range(6))
     p = tmp_path / "t.srt"
     p.write_text(cues, "utf-8")

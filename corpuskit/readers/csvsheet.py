@@ -8,7 +8,7 @@ from typing import Iterator
 
 from ..ledger import LedgerRow
 from ..config import Checked, param
-from ._decode import TextFile
+from .decode import TextFile
 
 csv.field_size_limit(64 << 20)
 

@@ -8,7 +8,7 @@ from typing import Iterator
 
 from ..ledger import LedgerRow, rewrite
 from ..config import Checked, param
-from ._decode import TextFile
+from .decode import TextFile
 
 
 @dataclass(frozen=True)

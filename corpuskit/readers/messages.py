@@ -10,10 +10,9 @@ import re
 from dataclasses import dataclass
 from typing import Iterator
 
-from ..errors import RecipeError
 from ..ledger import LedgerRow
 from ..config import Checked, param
-from ._decode import TextFile
+from .decode import TextFile
 
 DEFAULT_PATTERN = r"^\[(?P<timestamp>[^\]]+)\] (?P<sender>[^:]{1,60}): (?P<text>.*)$"
 
@@ -57,10 +56,3 @@ def read(tf: TextFile, opts: Options) -> Iterator[dict]:
                                        f"{tf.rel} line {n}: text before the first message line; skipped", None, line[:500]))
     if current:
         yield current
-
-
-def check_pattern(value: str) -> None:  # pragma: no cover - used by the recipe template docs
-    try:
-        re.compile(value)
-    except re.error as exc:
-        raise RecipeError(f"line_pattern: {exc}") from None

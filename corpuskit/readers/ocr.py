@@ -10,7 +10,7 @@ from dataclasses import dataclass
 from typing import Iterator
 
 from ..config import Checked, param
-from ._decode import TextFile
+from .decode import TextFile
 
 
 @dataclass(frozen=True)

@@ -7,7 +7,7 @@ from typing import Iterator
 
 from ..ledger import LedgerRow
 from ..config import Checked, param
-from ._decode import TextFile
+from .decode import TextFile
 from .webvtt import blocks, cue_text, documents
 
 TIMING = re.compile(r"^\s*(\d{1,2}:\d{2}:\d{2}[,.]\d{1,3})\s*-->\s*(\d{1,2}:\d{2}:\d{2}[,.]\d{1,3})")

@@ -9,7 +9,7 @@ from typing import Iterator
 
 from ..ledger import LedgerRow, rewrite
 from ..config import Checked, param
-from ._decode import TextFile
+from .decode import TextFile
 
 BLOCK_TAGS = {"p", "div", "br", "li", "h1", "h2", "h3", "h4", "h5", "h6", "tr", "td", "th",
               "section", "article", "header", "footer", "nav", "title", "pre", "blockquote"}

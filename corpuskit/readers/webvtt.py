@@ -13,7 +13,7 @@ from typing import Iterator
 
 from ..ledger import LedgerRow
 from ..config import Checked, param
-from ._decode import TextFile
+from .decode import TextFile
 
 # hh:mm:ss.ttt or mm:ss.ttt, per the WebVTT timestamp grammar.
 TIMESTAMP = r"(?:\d{2,}:)?[0-5]\d:[0-5]\d\.\d{3}"

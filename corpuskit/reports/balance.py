@@ -133,7 +133,7 @@ class ScriptInventory:
         """Count the document's characters; with ``examples`` False (a source that may not be
         redistributed) its text gives no example contexts."""
         from ..pii import PLACEHOLDER
-        from ..stages.script import char_script
+        from ..scripts import char_script
         for seg in doc["segments"]:
             if "<" in seg:
                 seg = PLACEHOLDER.sub(" ", seg)      # <PHONE> is the pipeline's, not the text's

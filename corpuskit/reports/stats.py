@@ -1,7 +1,6 @@
 """Measures used by the balance report; each is checked against a published worked example."""
 from __future__ import annotations
 
-import math
 from typing import Iterable, Mapping
 
 import numpy as np
@@ -63,7 +62,3 @@ def heaps_fit(points: list[tuple[int, int]]) -> tuple[float, float]:
 
 def jaccard(a: set, b: set) -> float:
     return len(a & b) / len(a | b) if a | b else 0.0
-
-
-def entropy_nats_to_bits(h: float) -> float:  # pragma: no cover - convenience
-    return h / math.log(2)

@@ -20,10 +20,12 @@ from typing import Any
 import numpy as np
 import regex
 
-from ..ledger import LedgerRow, remove_document, remove_segment
+from ..casing import comparison_key
+from ..ledger import LedgerRow, merge_segment, remove_document, remove_segment
 from ..config import Checked, param
 from ..storage import digest64
-from ._base import drop_empty, no_context, no_context_key
+from .contract import Applied
+from .units import drop_empty
 
 VERSION = "4"
 
@@ -47,8 +49,6 @@ class Params(Checked):
     boilerplate_share: float = param(0.2, low=0, high=1, help="... and on this share of the pages")
 
 
-context_key = no_context_key
-build_context = no_context
 
 PAGE_NUMBER = regex.compile(r"""^\s*(?:
       [-–—.\s]*\d{1,4}[-–—.\s]*              # 12, - 12 -, 12.
@@ -166,7 +166,7 @@ def apply(docs: list[dict], params: Params, survey: dict | None):
         if doc is not None:
             doc["original"] = list(doc["segments"])
             out.append(doc)
-    return drop_empty("clean", out, rows), rows
+    return Applied(drop_empty("clean", out, rows), rows)
 
 
 def _drop(doc: dict, drop: dict[int, tuple[str, str]], rows: list[LedgerRow]) -> dict:
@@ -181,15 +181,15 @@ def _drop(doc: dict, drop: dict[int, tuple[str, str]], rows: list[LedgerRow]) ->
 
 def _join(doc: dict, groups: list[list[int]], reasons: dict[int, str], rows: list[LedgerRow], sep: dict[int, str],
           details: dict[int, str] | None = None) -> dict:
-    """Join each group of positions into its first segment; the others leave with a ledger row."""
+    """Join each group of positions into its first segment; the others leave as merged (a ledger row each)."""
     segs, idx = [], []
     for group in groups:
         text = doc["segments"][group[0]]
         for j in group[1:]:
             joiner = sep.get(j, " ")
             where = f"joined into segment {doc['seg_index'][group[0]]}"
-            rows.append(remove_segment("clean", doc, j, reasons.get(j, "joined"),
-                                       f"{details[j]}; {where}" if details and j in details else where))
+            rows.append(merge_segment("clean", doc, j, reasons.get(j, "joined"),
+                                      f"{details[j]}; {where}" if details and j in details else where))
             text = (text[:-1] if joiner == "" and text and text[-1] in "-\u00ad\u00ac\u2010" else text) + joiner + doc["segments"][j].lstrip()
         segs.append(text)
         idx.append(doc["seg_index"][group[0]])
@@ -300,7 +300,7 @@ def clean_ocr(doc: dict, params: Params, headers: set[str], vocab: set[str], row
 def _message_key(doc: dict, params: Params) -> str:
     text = " ".join(doc["segments"])
     text = regex.sub(params.forward_pattern, "", text, flags=regex.I)
-    return " ".join(text.casefold().split())
+    return comparison_key(text)
 
 
 def _message_digest(doc: dict, params: Params) -> int:

@@ -22,17 +22,19 @@ import io
 from collections import defaultdict
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
-from ..ledger import LedgerRow, remove_document, remove_segment
+from ..ledger import LedgerRow, remove_document
 from ..config import Checked, param
-from ..storage import Cache, atomic_write_bytes, digest64, stable_hash
+from ..lsh import BANDWISE_ABOVE, band_keys, band_pairs, candidates_by_shuffle, candidates_by_sorting, lsh_params, s_curve
+from ..minhash import (batch_signatures, exact_jaccard,
+                       normalise_for_hash, permutations, shingles_of_texts)
+from ..storage import Cache, atomic_write_bytes, stable_hash
+from .contract import Applied, Decisions, Services
+from .units import keep_segments
 
 VERSION = "3"
-MASK32 = np.uint64(0xFFFFFFFF)
-SCHEME_SEED = 20261201
 
 
 @dataclass(frozen=True)
@@ -50,186 +52,7 @@ class Params(Checked):
     boilerplate_min_sources: int = param(2, low=1, high=100_000, help="... of this many sources is boilerplate")
 
 
-# -- shingles and signatures ---------------------------------------------------------------
-
-def normalise_for_hash(text: str) -> str:
-    return " ".join(text.casefold().split())
-
-
-def fmix64(h: np.ndarray) -> np.ndarray:
-    """Murmur3's 64-bit finaliser: spreads every input bit over the output."""
-    h = h.astype(np.uint64, copy=True)
-    with np.errstate(over="ignore"):
-        h ^= h >> np.uint64(33)
-        h *= np.uint64(0xFF51AFD7ED558CCD)
-        h ^= h >> np.uint64(33)
-        h *= np.uint64(0xC4CEB93FCA2E2A21)
-        h ^= h >> np.uint64(33)
-    return h
-
-
-def shingle_hashes(text: str, ngram: int, unit: str = "char") -> np.ndarray:
-    """Distinct 32-bit hashes of the text's n-grams, computed as arrays.
-
-    >>> len(shingle_hashes("a rose is a rose is a rose", 4, "word"))  # IIR 19.6
-    3
-    """
-    text = normalise_for_hash(text)
-    if unit == "word":
-        words = text.split(" ")
-        codes = np.array([digest64(w) for w in words],
-                         dtype=np.uint64) if text else np.zeros(0, np.uint64)
-    else:
-        codes = np.frombuffer(text.encode("utf-32-le"), dtype=np.uint32).astype(np.uint64)
-    n = len(codes) - ngram + 1
-    if n <= 0:
-        return np.zeros(0, dtype=np.uint32) if not len(codes) else np.unique(fmix64(codes[:1] + np.uint64(len(codes))).__and__(MASK32).astype(np.uint32))
-    h = np.zeros(n, dtype=np.uint64)
-    with np.errstate(over="ignore"):
-        for j in range(ngram):
-            h = h * np.uint64(1_000_003) + codes[j:j + n]
-    return np.unique((fmix64(h) & MASK32).astype(np.uint32))
-
-
-def batch_shingle_hashes(texts: list[str], ngram: int, unit: str = "char", distinct: bool = True) -> list[np.ndarray]:
-    """``shingle_hashes`` of many texts, with the rolling hash computed once over all of them
-    (character n-grams; word n-grams go text by text).  With ``distinct=False`` repeated
-    n-grams stay in (a MinHash signature does not change) and the sort is saved."""
-    if unit != "char":
-        return [shingle_hashes(t, ngram, unit) for t in texts]
-    texts = [normalise_for_hash(t) for t in texts]
-    lengths = np.array([len(t) for t in texts], dtype=np.int64)
-    codes = np.frombuffer("".join(texts).encode("utf-32-le"), dtype=np.uint32).astype(np.uint64)
-    n = max(len(codes) - ngram + 1, 0)
-    h = np.zeros(n, dtype=np.uint64)
-    with np.errstate(over="ignore"):
-        for j in range(ngram):
-            h = h * np.uint64(1_000_003) + codes[j:j + n]
-    h = fmix64(h) & MASK32
-    starts = np.concatenate([[0], np.cumsum(lengths)[:-1]]).astype(np.int64)
-    if not distinct:  # n-grams that would run into the next text are never read
-        return [h[a:a + length - ngram + 1].astype(np.uint32) if length >= ngram else shingle_hashes(text, ngram)
-                for a, text, length in zip(starts, texts, lengths)]
-    # Tag each n-gram inside one text with the text's number in the high 32 bits; one sort
-    # then gives every text's distinct hashes in order.
-    owner = np.repeat(np.arange(len(texts), dtype=np.uint64), lengths)[:n]
-    inside = np.arange(n) <= (starts + lengths - ngram)[owner.astype(np.int64)]
-    keyed = np.sort((owner[inside] << np.uint64(32)) | h[inside])
-    keyed = keyed[np.concatenate([[True], keyed[1:] != keyed[:-1]])] if len(keyed) else keyed
-    bounds = np.searchsorted(keyed >> np.uint64(32), np.arange(len(texts) + 1, dtype=np.uint64))
-    values = (keyed & MASK32).astype(np.uint32)
-    return [values[bounds[i]:bounds[i + 1]] if length >= ngram else shingle_hashes(text, ngram)
-            for i, (text, length) in enumerate(zip(texts, lengths))]
-
-
-LONG_TEXT = 1 << 20   # characters; longer texts are hashed window by window
-
-
-def shingles_of_texts(texts: list[str], ngram: int, unit: str, distinct: bool = False) -> list[np.ndarray]:
-    """``batch_shingle_hashes`` of each text (with ``distinct``, sorted and without repeats); a text
-    longer than LONG_TEXT is hashed in overlapping windows, so memory does not grow with one
-    document's size (its hashes come back distinct)."""
-    short = [i for i, t in enumerate(texts) if len(t) <= LONG_TEXT]
-    out: list[np.ndarray] = [np.zeros(0, np.uint32)] * len(texts)
-    for i, h in zip(short, batch_shingle_hashes([texts[i] for i in short], ngram, unit, distinct=distinct)):
-        out[i] = h
-    for i in (i for i, t in enumerate(texts) if len(t) > LONG_TEXT):
-        out[i] = np.unique(np.concatenate([batch_shingle_hashes([w], ngram, unit, distinct=False)[0]
-                                           for w in _windows(texts[i], ngram, unit)]))
-    return out
-
-
-def _windows(text: str, ngram: int, unit: str):
-    """Windows of about LONG_TEXT characters, each overlapping the previous one by ngram - 1
-    characters (or words), so every n-gram lies wholly inside one window."""
-    start = 0
-    while start < len(text):
-        end = min(len(text), start + LONG_TEXT)
-        if unit == "word" and end < len(text):
-            cut = text.rfind(" ", start, end)
-            end = cut if cut > start else end
-        yield text[start:end] if unit != "word" or start == 0 else text[start:end].lstrip(" ")
-        if end >= len(text):
-            return
-        if unit == "word":
-            back = end
-            for _ in range(ngram - 1):
-                back = text.rfind(" ", start, back - 1) if back - 1 > start else start
-            start = max(back, start + 1)
-        else:
-            start = end - (ngram - 1)
-
-
-def permutations(num_perm: int, seed: int = SCHEME_SEED) -> tuple[np.ndarray, np.ndarray]:
-    rng = np.random.default_rng(seed)
-    a = rng.integers(1, 2**32, size=num_perm, dtype=np.uint64) | np.uint64(1)
-    b = rng.integers(0, 2**32, size=num_perm, dtype=np.uint64)
-    return a, b
-
-
-def signature(hashes: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Per-permutation minima of (a*h + b) mod 2^32 over the shingle hashes."""
-    if not len(hashes):
-        return np.full(len(a), 0xFFFFFFFF, dtype=np.uint32)
-    with np.errstate(over="ignore"):
-        perm = (hashes.astype(np.uint64)[:, None] * a[None, :] + b[None, :]) & MASK32
-    return perm.min(axis=0).astype(np.uint32)
-
-
-def batch_signatures(hash_sets: list[np.ndarray], a: np.ndarray, b: np.ndarray,
-                     chunk_shingles: int = 8192) -> np.ndarray:
-    """Signatures of many documents at once.
-
-    The 32-bit shingle hashes of a batch of documents are concatenated and permuted in
-    one array operation, laid out as permutations x shingles (uint32 arithmetic wraps,
-    which is the mod 2^32 of the affine hash), then reduced to per-document minima with
-    ``minimum.reduceat`` along the contiguous axis.  Rows equal ``signature(h, a, b)``.
-    Batches of about 8k shingles (4 MB at 128 permutations, within the cache) measured fastest here
-    (2.3 times faster than 16k on 3,000 documents, this session).
-    """
-    a32, b32 = a.astype(np.uint32)[:, None], b.astype(np.uint32)[:, None]
-    sigs = np.full((len(hash_sets), len(a)), 0xFFFFFFFF, dtype=np.uint32)
-    lengths = np.array([len(h) for h in hash_sets], dtype=np.int64)
-    for row in np.flatnonzero(lengths > chunk_shingles).tolist():
-        # A very long document alone, in slices (a running minimum): memory stays one slice.
-        for at in range(0, int(lengths[row]), chunk_shingles):
-            part = hash_sets[row][at:at + chunk_shingles].astype(np.uint32, copy=False)
-            perm = np.multiply.outer(a32[:, 0], part)
-            np.add(perm, b32, out=perm)
-            np.minimum(sigs[row], perm.min(axis=1), out=sigs[row])
-    lengths = np.where(lengths > chunk_shingles, 0, lengths)
-    start = 0
-    while start < len(hash_sets):
-        stop, total = start, 0
-        while stop < len(hash_sets) and (stop == start or total + lengths[stop] <= chunk_shingles):
-            total += lengths[stop]
-            stop += 1
-        rows = np.flatnonzero(lengths[start:stop] > 0)
-        if len(rows):
-            flat = np.concatenate([hash_sets[start + r] for r in rows]).astype(np.uint32, copy=False)
-            offsets = np.concatenate([[0], np.cumsum(lengths[start:stop][rows][:-1])])
-            perm = np.multiply.outer(a32[:, 0], flat)
-            np.add(perm, b32, out=perm)
-            sigs[start + rows] = np.minimum.reduceat(perm, offsets, axis=1).T
-        start = stop
-    return sigs
-
-
-def estimate_jaccard(s1: np.ndarray, s2: np.ndarray) -> float:
-    return float(np.mean(s1 == s2))
-
-
-def exact_jaccard(a: np.ndarray, b: np.ndarray) -> float:
-    """|A & B| / |A | B| of two sorted arrays of distinct n-gram hashes.
-
-    >>> exact_jaccard(np.array([1, 2, 3]), np.array([2, 3, 4]))
-    0.5
-    """
-    if not len(a) and not len(b):
-        return 1.0
-    inter = len(np.intersect1d(a, b, assume_unique=True))
-    return inter / (len(a) + len(b) - inter)
-
+# -- shingle sets, verification, signatures per partition ----------------------------------
 
 class ShingleSets:
     """Each document's n-gram hashes, read from the partitions' files on demand."""
@@ -477,50 +300,23 @@ def _codes(values: np.ndarray, names: list[str]) -> np.ndarray:
     return np.array([index[u] for u in uniq.tolist()], dtype=np.int32)[inverse] if len(values) else np.zeros(0, np.int32)
 
 
-def load_signatures(runner, stage: str, in_stage: str, parts, params: Params) -> SignatureSet:
+def load_signatures(services, stage: str, in_stage: str, parts, params: Params) -> SignatureSet:
     """Compute (or reuse) every partition's signatures; the set of them in partition order."""
     from ..codeversion import code_version
     version = f"{VERSION}:{code_version(__name__)}"
     names = {p.key: f"sig-{stable_hash(version, p.key, params.num_perm, params.ngram, params.shingle)}" for p in parts}
-    todo = [p for p in parts if not runner.cache.has_blob(stage, f"{names[p.key]}.npz")]
-    args = [(str(runner.cache.root), in_stage, p.key, params, names[p.key], stage) for p in todo]
-    with runner.progress(f"{stage}:signatures", len(args)) as tick:
-        for _ in runner.engine.imap(signatures_task, args):
+    todo = [p for p in parts if not services.cache.has_blob(stage, f"{names[p.key]}.npz")]
+    args = [(str(services.cache.root), in_stage, p.key, params, names[p.key], stage) for p in todo]
+    with services.progress(f"{stage}:signatures", len(args)) as tick:
+        for _ in services.map(signatures_task, args):
             tick(0)
-    if hasattr(runner.engine, "rest"):
-        runner.engine.rest(idle=True)  # what follows runs in this process
-    path = runner.cache.blob_path
+    services.rest(idle=True)  # what follows runs in this process
+    path = services.cache.blob_path
     return SignatureSet(params.num_perm, [path(stage, f"{names[p.key]}.npy") for p in parts],
                         [path(stage, f"{names[p.key]}.npz") for p in parts], [p.key for p in parts])
 
 
 # -- candidates, clusters ------------------------------------------------------------------
-
-CANDIDATE_RECALL = 0.99   # a pair at the threshold becomes a candidate with at least this probability
-
-
-def lsh_params(threshold: float, num_perm: int) -> tuple[int, int]:
-    """(bands, rows per band), b * r <= num_perm, such that a pair whose Jaccard equals the
-    threshold becomes a candidate with probability 1 - (1 - t^r)^b >= CANDIDATE_RECALL; among
-    those, the most rows per band (the steepest S-curve, so the fewest candidates far below the
-    threshold), then the most bands.  Candidates are verified exactly, so a false candidate costs
-    one comparison, while a missed one cannot be recovered.
-
-    >>> lsh_params(0.8, 128)
-    (21, 6)
-    """
-    best = (num_perm, 1)
-    for rows in range(1, num_perm + 1):
-        bands = num_perm // rows
-        if bands >= 1 and s_curve(threshold, bands, rows) >= CANDIDATE_RECALL:
-            best = (bands, rows)
-    return best
-
-
-def s_curve(s: float, bands: int, rows: int) -> float:
-    """Probability that a pair of Jaccard similarity s becomes a candidate: 1 - (1 - s^r)^b."""
-    return 1.0 - (1.0 - s ** rows) ** bands
-
 
 def candidate_pairs(sigs, eligible: np.ndarray, bands: int, rows: int, engine=None) -> np.ndarray:
     """Pairs of row numbers (smaller first, sorted, distinct) that share at least one LSH band;
@@ -530,83 +326,8 @@ def candidate_pairs(sigs, eligible: np.ndarray, bands: int, rows: int, engine=No
     if len(idx) < 2:
         return np.zeros((0, 2), dtype=np.int64)
     if engine is not None and hasattr(engine, "frame_map"):
-        return _candidates_by_shuffle(sigset.band_keys(idx, bands, rows), idx, engine, len(sigset))
-    return _candidates_by_sorting(sigset.band_keys(idx, bands, rows), idx, len(sigset))
-
-
-def band_keys(sigs: np.ndarray, bands: int, rows: int) -> np.ndarray:
-    """A 64-bit key per (document, band) from the band's hash values."""
-    keys = np.zeros((sigs.shape[0], bands), dtype=np.uint64)
-    with np.errstate(over="ignore"):
-        for band in range(bands):
-            k = np.full(sigs.shape[0], np.uint64(band), dtype=np.uint64)
-            for c in range(band * rows, (band + 1) * rows):
-                k = fmix64(k * np.uint64(0x100000001B3) ^ sigs[:, c].astype(np.uint64))
-            keys[:, band] = k
-    return keys
-
-
-# Beyond this many documents, candidates are found and verified band by band, so that the whole
-# candidate set is never held at once.
-BANDWISE_ABOVE = 50_000
-# A bucket with more members than this links each member to its first one only (enough for
-# clustering by connected components) instead of every pair, which would grow quadratically.
-FULL_BUCKET = 64
-
-
-def _candidates_by_sorting(keys_by_band: np.ndarray, idx: np.ndarray, n: int) -> np.ndarray:
-    """Documents agreeing on a band, found band by band by sorting the band keys; the pairs are
-    kept as one sorted array of ``smaller * n + larger`` codes (8 bytes a pair)."""
-    codes = [np.zeros(0, dtype=np.int64)]
-    for band in range(keys_by_band.shape[1]):
-        pairs = band_pairs(keys_by_band[:, band], idx)
-        codes.append(pairs[:, 0] * n + pairs[:, 1])
-    codes = np.concatenate(codes)
-    codes.sort()  # distinct by sorting: numpy's hash-based unique measured 20 times slower here
-    codes = codes[np.concatenate([[True], codes[1:] != codes[:-1]])] if len(codes) else codes
-    return np.stack([codes // n, codes % n], axis=1)
-
-
-def band_pairs(keys: np.ndarray, idx: np.ndarray) -> np.ndarray:
-    """The candidate pairs of every bucket of one band at once: rows sorted by (key, row), then
-    each row is paired with the rows 1, 2, ... places after it in the same bucket (buckets of
-    at most FULL_BUCKET members), or with its bucket's first row (larger buckets)."""
-    if len(keys) < 2:
-        return np.zeros((0, 2), dtype=np.int64)
-    order = np.lexsort((idx, keys))
-    k, members = keys[order], idx[order].astype(np.int64)
-    starts_here = np.concatenate([[True], k[1:] != k[:-1]])
-    group = np.cumsum(starts_here) - 1
-    starts = np.flatnonzero(starts_here)
-    sizes = np.diff(np.append(starts, len(k)))
-    small = (sizes <= FULL_BUCKET)[group]
-    out = [np.zeros((0, 2), dtype=np.int64)]
-    for d in range(1, int(sizes[sizes <= FULL_BUCKET].max(initial=1))):
-        same = (group[:-d] == group[d:]) & small[:-d]
-        out.append(np.stack([members[:-d][same], members[d:][same]], axis=1))
-    big = ~small & ~starts_here
-    if big.any():
-        out.append(np.stack([members[starts][group[big]], members[big]], axis=1))
-    return np.concatenate(out)
-
-
-def _candidates_by_shuffle(keys: np.ndarray, idx: np.ndarray, engine, n: int) -> np.ndarray:
-    """The same pairs as ``_candidates_by_sorting``, with the band keys shuffled across the
-    cluster so that documents sharing a key meet in one partition, which pairs them there.
-    (Each band's keys are hashed from the band number on, so one key column serves all bands.)"""
-    import pandas as pd
-    frame = pd.DataFrame({"key": keys.ravel(), "doc": np.repeat(idx, keys.shape[1]).astype(np.int64)})
-    pairs = engine.frame_map(frame, "key", _partition_pairs, {"left": "int64", "right": "int64"})
-    codes = pairs["left"].to_numpy() * n + pairs["right"].to_numpy()
-    codes.sort()
-    codes = codes[np.concatenate([[True], codes[1:] != codes[:-1]])] if len(codes) else codes
-    return np.stack([codes // n, codes % n], axis=1)
-
-
-def _partition_pairs(part):
-    import pandas as pd
-    pairs = band_pairs(part["key"].to_numpy(), part["doc"].to_numpy())
-    return pd.DataFrame({"left": pairs[:, 0], "right": pairs[:, 1]})
+        return candidates_by_shuffle(sigset.band_keys(idx, bands, rows), idx, engine, len(sigset))
+    return candidates_by_sorting(sigset.band_keys(idx, bands, rows), idx, len(sigset))
 
 
 class NearPairs:
@@ -708,11 +429,11 @@ def keep_ranks(data: SignatureSet, listed: dict[str, int], source_priority: dict
     return listed_rank, -own, -data.lengths, np.arange(len(data))
 
 
-def decide(runner, in_stage: str, parts, params: Params) -> dict[str, Any]:
-    data = load_signatures(runner, "dedup", in_stage, parts, params)
+def decide(services: Services, in_stage: str, parts, params: Params) -> Decisions:
+    data = load_signatures(services, "dedup", in_stage, parts, params)
     n = len(data)
     ranks = keep_ranks(data, {s: i for i, s in enumerate(params.source_priority)},
-                       {s.id: s.priority for s in runner.recipe.sources})
+                       {s.id: s.priority for s in services.recipe.sources})
     reason = np.zeros(n, dtype=np.int8)
     twin = np.full(n, -1, dtype=np.int64)
     similarity = np.zeros(n)
@@ -722,7 +443,7 @@ def decide(runner, in_stage: str, parts, params: Params) -> dict[str, Any]:
     run_start = order[np.maximum.accumulate(np.where(first, np.arange(n), 0))] if n else order
     reason[order[~first]], twin[order[~first]], similarity[order[~first]] = 1, run_start[~first], 1.0
     shingles = data.shingles()
-    pairs, (bands, rows) = near_duplicate_pairs(data, params.threshold, params, getattr(runner, "engine", None),
+    pairs, (bands, rows) = near_duplicate_pairs(data, params.threshold, params, services.engine,
                                                 alive=reason == 0,
                                                 verify=lambda d, p, t: verify_exactly(d, shingles, p, t))
     keep_order = np.lexsort(tuple(reversed(ranks))) if n else np.zeros(0, np.int64)
@@ -758,8 +479,7 @@ def decide(runner, in_stage: str, parts, params: Params) -> dict[str, Any]:
               "verified_pairs": len(pairs),
               "boilerplate_segment_types": len(set().union(*boiler.values())) if boiler else 0, "clusters": cluster_rows,
               "pairs": pair_rows}
-    runner.cache.put_json("dedup", "report.json", report)
-    return decisions
+    return Decisions(decisions, report)
 
 
 def _distinct_pairs(a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -788,10 +508,6 @@ def boilerplate_segments(data: SignatureSet, survivors: np.ndarray, params: Para
     return out
 
 
-def partition_context(ctx, survey):  # pragma: no cover - global stage; see decide()
-    return ctx
-
-
 def apply(docs: list[dict], params: Params, decision: dict):
     rows: list[LedgerRow] = []
     out = []
@@ -806,18 +522,13 @@ def apply(docs: list[dict], params: Params, decision: dict):
         if boiler:
             keep = [segment_hash(s) not in boiler for s in doc["segments"]]
             if not all(keep):
-                for i, k in enumerate(keep):
-                    if not k:
-                        rows.append(remove_segment("dedup", doc, i, "boilerplate-segment", "repeated across documents of several sources"))
-                idx = [i for i, k in enumerate(keep) if k]
-                for name in ("segments", "seg_index", "original", "seg_script", "seg_lang", "seg_score"):
-                    if doc.get(name) is not None and len(doc[name]) == len(keep):
-                        doc[name] = [doc[name][i] for i in idx]
+                keep_segments("dedup", doc, keep, ["boilerplate-segment"] * len(keep),
+                              ["repeated across documents of several sources"] * len(keep), rows)
                 if not doc["segments"]:
                     rows.append(remove_document("dedup", doc, "no-segments-left", "every segment was boilerplate"))
                     continue
         out.append(doc)
-    return out, rows
+    return Applied(out, rows)
 
 
 def report_json(cache: Cache) -> dict:

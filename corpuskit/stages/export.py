@@ -1,7 +1,7 @@
 """Export: shards, splits, tokenizer, reports, ledger, datasheet and manifest.
 
 Each final partition becomes a cached *piece* on the engine's workers (see
-``_pieces``); this module joins the pieces into the output files and merges their
+``export_pieces``); this module joins the pieces into the output files and merges their
 summaries into the reports, so a re-run rewrites only what changed partitions
 contribute.  Documents whose source may not be redistributed go to
 ``restricted/`` (or are excluded, by recipe) and never to the public shards,
@@ -25,11 +25,13 @@ from ..ledger import Counts, conservation
 from ..config import Checked, param
 from ..sheets import csv_text
 from ..storage import atomic_write_text, file_sha256, stable_hash
-from . import tokenizer as tok
-from . import transliterate as translit
-from ._pieces import (EMPTY_GZIP, VERSION as PIECES_VERSION, LedgerSettings, LedgerSummary, PieceSettings, ReviewPool,
+from .. import tokenizer as tok
+from .. import transliterate as translit
+from .export_pieces import (EMPTY_GZIP, VERSION as PIECES_VERSION, LedgerSettings, LedgerSummary, PieceSettings, ReviewPool,
                       SampleMerger, destination, document_piece_task, join_sections, ledger_piece_task, read_section,
                       shard_groups)
+from . import langid
+from .contract import Services
 from .split import SPLITS
 from ..audit import PUBLIC_FILES, PUBLIC_PARTS, public_files
 
@@ -92,7 +94,7 @@ SOURCE_COLUMNS = ["source", "medium", "dialect", "output", "documents in", "docu
 
 
 def source_counts(recipe, by_source: dict[str, Counter]) -> list[dict]:
-    """Per source: what came in (kept plus removed, as the ledger counts it) and what was kept."""
+    """Per source: what came in (kept plus removed plus merged, as the ledger counts it) and what was kept."""
     specs = {s.id: s for s in recipe.sources}
     rows = []
     for sid, c in by_source.items():
@@ -100,7 +102,8 @@ def source_counts(recipe, by_source: dict[str, Counter]) -> list[dict]:
         rows.append({"source": sid, "medium": spec.medium if spec else "", "dialect": (spec.dialect if spec else "") or "mixed",
                      "output": "public" if spec is None or spec.redistributable else "restricted",
                      "documents in": c["documents kept"] + c["documents removed"], "documents kept": c["documents kept"],
-                     "segments in": c["segments kept"] + c["segments removed"], "segments kept": c["segments kept"]})
+                     "segments in": c["segments kept"] + c["segments removed"] + c["segments merged"],
+                     "segments kept": c["segments kept"]})
     return rows
 
 
@@ -145,17 +148,33 @@ def split_sizes(cells: dict[tuple[str, str], list[int]]) -> list[dict]:
             for (dialect, name), (n, segs) in sorted(cells.items())]
 
 
-def _langid_threshold(runner) -> float | None:
-    name = getattr(runner, "langid_report", None)
-    if name and runner.cache.has_blob("langid", name):
-        return runner.cache.get_json("langid", name)["threshold"]["value"]
-    return None
+def _langid_report(services: Services) -> dict | None:
+    """This run's language-ID report (its classifier's calibration and cross-validation)."""
+    key = services.context_keys.get("langid")
+    name = langid.report_blob(key) if key is not None else None
+    return services.cache.get_json("langid", name) if name and services.cache.has_blob("langid", name) else None
 
 
-def write_outputs(runner, in_stage: str, parts, reports) -> dict:
+def _langid_threshold(services: Services) -> float | None:
+    report = _langid_report(services)
+    return report["threshold"]["value"] if report else None
+
+
+@dataclass
+class ExportResult:
+    counts: Counts
+    conservation: dict
+    manifest: dict
+    pieces_computed: int
+    pieces_reused: int
+
+
+def write_outputs(services: Services, in_stage: str, parts, reports) -> ExportResult:
+    """Write the output folder from the last stage's partitions and every stage's ledger; ``reports``
+    are the earlier stages' StageReports (counts and typed figures)."""
     from ..reports import balance, datasheet
 
-    recipe, cache, out = runner.recipe, runner.cache, runner.out
+    recipe, cache, out = services.recipe, services.cache, services.out
     params: Params = recipe.stages["export"]
     for stale in (out / "manifest.json", out / "ledger.jsonl.gz"):  # no manifest until the audit passes
         stale.unlink(missing_ok=True)
@@ -165,8 +184,9 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
             for f in p.iterdir():
                 if f.is_file() and f.name != "pseudonym-secret.txt":
                     f.unlink()
-    doc_pieces, ledger_pieces = _make_pieces(runner, in_stage, parts)
-    m = merge_pieces(runner, doc_pieces, ledger_pieces)
+    secret = _people_secret(services)
+    doc_pieces, ledger_pieces, computed, reused = _make_pieces(services, in_stage, parts, secret)
+    m = merge_pieces(services, doc_pieces, ledger_pieces)
     stats, script_inventory, by_source, review = m.stats, m.script_inventory, m.by_source, m.review
     split_counts, samples, led, counts, summaries = m.split_counts, m.samples, m.ledger, m.counts, m.summaries
     kept_docs, kept_segs = counts.docs_out, counts.segs_out
@@ -182,22 +202,25 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
                           "dev" if dev else "train")
     used = tok_info["summary"].get("vocab_used")
     if used and used != params.vocab_size:
-        runner.warnings.append(f"tokenizer: vocabulary {used} instead of the requested {params.vocab_size} "
+        services.warn(f"tokenizer: vocabulary {used} instead of the requested {params.vocab_size} "
                                + ("(the text has more distinct characters than that; each needs a piece)"
                                   if used > params.vocab_size else "(the largest this much text supports)")
                                + "; set [stages.export] vocab_size to silence this")
 
     ledger_totals, removal_examples, rewrite_by_reason = led.totals, led.removal_examples, led.rewrite_by_reason
-    round_trip, variant_rewrites, nfkc_folds = led.round_trip, led.variant_rewrites, led.nfkc_folds
+    figures = {r.name: r.figures for r in reports if r.figures is not None}
+    round_trip = figures["script"].round_trip if "script" in figures else Counter()
+    variant_rewrites = figures["variants"].rewrites if "variants" in figures else Counter()
+    nfkc_folds = figures["normalise"].nfkc_folds if "normalise" in figures else Counter()
     ingest = reports[0].counts
     cons = conservation(ledger_totals, ingest.docs_in, ingest.segs_in, kept_docs, kept_segs)
 
     # Reports.
     rep = out / "reports"
-    runner.warnings.extend(one_split_sources(by_source))
-    runner.warnings.extend(_orthography(rep, script_inventory, recipe))
-    bal = balance.write_report(rep, stats, params, recipe, runner.warnings)
-    runner.warnings.extend(f"balance: {w}" for w in bal["warnings"])
+    services.warnings.extend(one_split_sources(by_source))
+    services.warnings.extend(_orthography(rep, script_inventory, recipe))
+    bal = balance.write_report(rep, stats, params, recipe, services.warnings)
+    services.warnings.extend(f"balance: {w}" for w in bal["warnings"])
     atomic_write_text(rep / "script-inventory.csv", script_inventory.csv())
     removal_rows = []
     for s in reports + [type("R", (), {"name": "export", "counts": counts})()]:
@@ -207,7 +230,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
     atomic_write_text(rep / "removals.csv", csv_text(removal_rows, ["stage", "reason", "removed", "examples"]))
     atomic_write_text(rep / "rewrites.csv", csv_text([{"stage_reason": k, "rewrites": v} for k, v in sorted(rewrite_by_reason.items())],
                                                  ["stage_reason", "rewrites"]))
-    extra = _stage_reports(runner, rep, out / "private", review, led)
+    extra = _stage_reports(services, rep, out / "private", review, led)
     atomic_write_text(rep / "variants.csv", csv_text(variants_report(stats.types["dialect"], variant_rewrites),
                                                  ["dialect", "rule", "tokens_rewritten", "types_before", "types_after"]))
     source_rows = source_counts(recipe, by_source)
@@ -226,9 +249,9 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         "stages": [{"stage": s.name, **s.counts.as_dict()} for s in reports] + [{"stage": "export", **counts.as_dict()}],
         "conservation": cons,
     }
-    facts = {"recipe": recipe, "summary": summary, "balance": bal, "tokenizer": tok_info, "extra": extra,
-             "public_docs": public_count, "restricted_docs": restricted_count, "params": params,
-             "splits": {k: v for k, v in split_docs.items() if v}, "sources": recipe.sources}
+    facts = datasheet.RunFacts(summary["stages"], cons, bal, tok_info, public_count, restricted_count,
+                               {k: v for k, v in split_docs.items() if v}, params.restricted,
+                               extra.get("langid_summary"), extra.get("dedup_params"))
     ds_text, unanswered = datasheet.render(recipe, facts)
     atomic_write_text(out / "datasheet.md", ds_text)
 
@@ -246,7 +269,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         "sources": source_rows,
         "datasheet_unanswered": unanswered,
     }
-    people = _write_private(out, m.people, runner.people_secret)
+    people = _write_private(out, m.people, secret)
     hits = _leak_audit(out, cache, doc_pieces, summaries, people, recipe)
     if hits:
         from ..errors import DataError
@@ -264,7 +287,7 @@ def write_outputs(runner, in_stage: str, parts, reports) -> dict:
         from ..errors import DataError
         raise DataError(f"{out}: the conservation check failed ({json.dumps(cons)}); the ledger does not account "
                         "for every unit. This is a bug; the manifest records the figures.")
-    return {"counts": counts, "conservation": cons, "manifest": manifest}
+    return ExportResult(counts, cons, manifest, computed, reused)
 
 
 def _in_contract(rel: Path) -> bool:
@@ -327,51 +350,49 @@ DIALECT_LINES = 50_000
 SAMPLE_LINES = {"train": TOKENIZER_LINES, "train:": DIALECT_LINES, "dev:": DIALECT_LINES}
 
 
-def _make_pieces(runner, in_stage: str, parts) -> tuple[list[str], list[tuple[str, list[str]]]]:
+def _make_pieces(services: Services, in_stage: str, parts, secret: bytes | None
+                 ) -> tuple[list[str], list[tuple[str, list[str]]], int, int]:
     """Build the pieces not yet in the cache, on the engine's workers.  Returns the document
-    piece names in partition order and, per stage in pipeline order, its ledger piece names."""
-    from .registry import STAGE_ORDER
-    recipe, cache = runner.recipe, runner.cache
+    piece names in partition order; per stage in pipeline order, its ledger piece names; and
+    how many pieces were computed and reused."""
+    recipe, cache = services.recipe, services.cache
     fparams = recipe.stages["filter"]
     ledger_settings = LedgerSettings(fparams.pii != "keep", tuple(fparams.id_patterns),
                                      tuple(sorted(s.id for s in recipe.sources if not s.redistributable)),
                                      tuple(recipe.corpus.regions))
-    runner.people_secret = _people_secret(runner)
-    settings = PieceSettings(recipe.stages["export"].restricted, _langid_threshold(runner),
+    settings = PieceSettings(recipe.stages["export"].restricted, _langid_threshold(services),
                              recipe.stages["langid"].review_size, SAMPLE_LINES, ledger_settings,
-                             runner.people_secret.hex() if runner.people_secret else "",
+                             secret.hex() if secret else "",
                              tuple((s.id, s.contributor or None, s.attribution) for s in recipe.sources),
                              recipe.corpus.language)
     from ..codeversion import code_version
-    pieces_version = f"{PIECES_VERSION}:{code_version('corpuskit.stages._pieces')}"
+    pieces_version = f"{PIECES_VERSION}:{code_version('corpuskit.stages.export_pieces')}"
     doc_names = [f"doc-{stable_hash(pieces_version, VERSION, p.key, settings)}" for p in parts]
     ledger_pieces = [(stage, [f"ledger-{stable_hash(pieces_version, stage, key, ledger_settings)}"
-                              for key in runner.last_keys.get(stage, [])])
-                     for stage in STAGE_ORDER if stage != "export"]
+                              for key in keys])
+                     for stage, keys in services.last_keys.items()]
     root = str(cache.root)
     doc_args = [(root, in_stage, p.key, settings, name) for p, name in zip(parts, doc_names)
                 if not cache.has_blob("export", f"{name}.json")]
     ledger_args = [(root, stage, key, ledger_settings, name) for stage, names in ledger_pieces
-                   for key, name in zip(runner.last_keys.get(stage, []), names) if not cache.has_blob("export", f"{name}.json")]
-    with runner.progress("export", len(doc_args) + len(ledger_args)) as tick:
-        for _ in runner.engine.imap(document_piece_task, doc_args):
+                   for key, name in zip(services.last_keys[stage], names) if not cache.has_blob("export", f"{name}.json")]
+    with services.progress("export", len(doc_args) + len(ledger_args)) as tick:
+        for _ in services.map(document_piece_task, doc_args):
             tick(0)
-        for _ in runner.engine.imap(ledger_piece_task, ledger_args):
+        for _ in services.map(ledger_piece_task, ledger_args):
             tick(0)
-    if hasattr(runner.engine, "rest"):
-        runner.engine.rest(idle=True)  # joining and the tokenizer run in this process
-    runner.export_pieces = {"computed": len(doc_args) + len(ledger_args),
-                            "reused": len(doc_names) + sum(len(n) for _, n in ledger_pieces) - len(doc_args) - len(ledger_args)}
-    return doc_names, ledger_pieces
+    services.rest(idle=True)  # joining and the tokenizer run in this process
+    computed = len(doc_args) + len(ledger_args)
+    return doc_names, ledger_pieces, computed, len(doc_names) + sum(len(n) for _, n in ledger_pieces) - computed
 
 
-def _people_secret(runner) -> bytes | None:
+def _people_secret(services: Services) -> bytes | None:
     """The pseudonym secret, created (with a warning) on a project's first run."""
     from ..people import load_or_create_secret
-    path = runner.recipe.secret_path
+    path = services.recipe.secret_path
     secret, created = load_or_create_secret(path)
     if created:
-        runner.warnings.append(f"{path}: created a new pseudonym secret; keep it private and keep it (with it, the same "
+        services.warn(f"{path}: created a new pseudonym secret; keep it private and keep it (with it, the same "
                                "person gets the same pseudonym in every run; without it, all pseudonyms change)")
     return secret
 
@@ -392,11 +413,11 @@ class Merged:
     restricted_count: int = 0                       # restricted segments the leak audit looks for
 
 
-def merge_pieces(runner, doc_pieces: list[str], ledger_pieces: list[tuple[str, list[str]]]) -> Merged:
+def merge_pieces(services: Services, doc_pieces: list[str], ledger_pieces: list[tuple[str, list[str]]]) -> Merged:
     from ..reports import balance
-    recipe, cache = runner.recipe, runner.cache
+    recipe, cache = services.recipe, services.cache
     m = Merged(balance.Accumulator(recipe.corpus.language), balance.ScriptInventory(), {s.id: Counter() for s in recipe.sources},
-               ReviewPool(_langid_threshold(runner), recipe.stages["langid"].review_size),
+               ReviewPool(_langid_threshold(services), recipe.stages["langid"].review_size),
                defaultdict(lambda: [0, 0]), SampleMerger(SAMPLE_LINES), LedgerSummary(), Counts(), [])
     for stage, names in ledger_pieces:
         for name in names:
@@ -511,8 +532,8 @@ def _tokenizer(out: Path, cache, params: Params, recipe, train_lines: list[str],
     return {"summary": summary, "dialects": rows}
 
 
-def _stage_reports(runner, rep: Path, private: Path, review, ledger_summary) -> dict:
-    cache, recipe = runner.cache, runner.recipe
+def _stage_reports(services: Services, rep: Path, private: Path, review, ledger_summary) -> dict:
+    cache, recipe = services.cache, services.recipe
     extra: dict = {}
     if cache.has_blob("dedup", "report.json"):
         d = cache.get_json("dedup", "report.json")
@@ -526,9 +547,8 @@ def _stage_reports(runner, rep: Path, private: Path, review, ledger_summary) -> 
         extra["dedup_params"] = d
     if cache.has_blob("split", "report.json"):
         extra["split"] = cache.get_json("split", "report.json")
-    ctx_report = getattr(runner, "langid_report", None)
-    if ctx_report and cache.has_blob("langid", ctx_report):
-        r = cache.get_json("langid", ctx_report)
+    r = _langid_report(services)
+    if r is not None:
         atomic_write_text(rep / "langid.json", json.dumps(r, indent=2, sort_keys=True) + "\n")
         if "confusion" in r:
             labels = r["labels"]
@@ -542,8 +562,7 @@ def _stage_reports(runner, rep: Path, private: Path, review, ledger_summary) -> 
                                    "folds": r.get("folds"), "hyperparameters": r.get("hyperparameters"),
                                    "target_precision": r.get("target_precision"),
                                    "target_segments_lost": ledger_summary.target_segments_lost}
-        from .langid import review_rows
-        rows = review_rows(review.best(), r["threshold"]["value"], recipe.stages["langid"].review_size)
+        rows = langid.review_rows(review.best(), r["threshold"]["value"], recipe.stages["langid"].review_size)
         atomic_write_text(private / "langid-review.csv",
                           csv_text([{k: str(v) for k, v in x.items()} for x in rows],
                                ["doc_id", "text", "p_target", "label"]))

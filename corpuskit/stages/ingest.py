@@ -2,21 +2,23 @@
 from __future__ import annotations
 
 import hashlib
-import json
 import math
 import os
 from collections import defaultdict
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Iterator
+from typing import TYPE_CHECKING, Iterator
 
 from ..ledger import Counts, LedgerRow
 from ..readers import READERS
-from ..readers._decode import TextFile
+from ..readers.decode import TextFile
 from ..config import Checked, build
-from ..recipe import SourceSpec
+from ..globs import glob_prefix
 from ..records import new_document
 from ..storage import digest64
+
+if TYPE_CHECKING:                     # a type only: the recipe module imports the stages
+    from ..recipe import SourceSpec
 
 VERSION = "5"
 
@@ -81,7 +83,6 @@ def id_path(source: SourceSpec):
     >>> id_path(s)("../texts/web/page-1.txt")
     'page-1.txt'
     """
-    from ..recipe import glob_prefix
     root = os.path.dirname(glob_prefix(source.path))   # a single file: its folder
 
     def key(rel: str) -> str:
@@ -158,10 +159,3 @@ def counts(docs: list[dict], rows: list[LedgerRow]) -> Counts:
             c.rewritten[key] += 1
     return c
 
-
-def context_key(recipe, params) -> str:  # pragma: no cover - ingest is planned by the runner
-    return ""
-
-
-def dumps(doc: dict) -> str:  # pragma: no cover - debugging aid
-    return json.dumps(doc, ensure_ascii=False)

@@ -35,12 +35,14 @@ from typing import Any
 import numpy as np
 import regex
 
+from ..casing import comparison_key
 from ..errors import RecipeError
 from ..ledger import LedgerRow, remove_document
 from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from ..variants_table import restore_cell
-from ._base import keep_segments
+from .contract import Applied
+from .units import keep_segments
 
 VERSION = "4"
 UND = "und"
@@ -96,7 +98,7 @@ def is_target(label: str, language: str) -> bool:
 
 def prepare_line(text: str) -> str:
     """The same preprocessing for training and prediction: one line, case-folded, single spaces."""
-    return " ".join(text.casefold().split())
+    return comparison_key(text)
 
 
 def read_seeds(recipe, params) -> list[tuple[str, str]]:
@@ -347,6 +349,11 @@ def calibrate(scores: np.ndarray, truth: np.ndarray, target_precision: float) ->
     return best
 
 
+def report_blob(context_key: str) -> str:
+    """The cache blob (in langid/) that holds the report of the classifier of ``context_key``."""
+    return f"report-{context_key}.json"
+
+
 def build_context(recipe, params, cache, key):
     stage_dir = cache.blob_path("langid", "")
     stage_dir.mkdir(parents=True, exist_ok=True)
@@ -354,7 +361,7 @@ def build_context(recipe, params, cache, key):
     # scores, so it means the same on new text.  (A final model trained on all seeds was measured
     # more confident than the fold models on real text, and let more wrong lines past the threshold.)
     fold_paths = [cache.blob_path("langid", f"model-{key}-fold{k}.bin") for k in range(params.folds)]
-    report_name = f"report-{key}.json"
+    report_name = report_blob(key)
     if params.model:
         fold_paths = [recipe.resolve(params.model, "[stages.langid] model")]
     if not cache.has_blob("langid", report_name):
@@ -544,11 +551,6 @@ def with_context(scores: np.ndarray, letters: list[int], full: int) -> np.ndarra
     return np.where(short > 0, 1.0 / (1.0 + np.exp(-mixed)), scores)
 
 
-def label_segments(texts: list[str], scripts: list[str] | None, ctx: dict, params: Params, model) -> tuple[list[str], list[float]]:
-    """``label_documents`` for one document's segments."""
-    return label_documents([{"segments": texts, "seg_script": scripts}], ctx, params, model)[0]
-
-
 def _trusted(doc: dict, ctx: dict) -> tuple[list[str], list[float]] | None:
     """Labels for a document of a source whose language the recipe declares (no classification)."""
     declared = ctx.get("declared", {}).get(doc["source"])
@@ -588,7 +590,7 @@ def apply(docs: list[dict], params: Params, ctx: dict):
             keep_segments("langid", doc, target, reasons, details, rows)
         doc["lang"] = language
         out.append(doc)
-    return out, rows
+    return Applied(out, rows)
 
 
 def review_rows(docs_scores: list[tuple[str, str, float]], threshold: float, size: int) -> list[dict]:
@@ -599,5 +601,3 @@ def review_rows(docs_scores: list[tuple[str, str, float]], threshold: float, siz
 
 def report_json(cache, ctx_name: str) -> dict:
     return cache.get_json("langid", ctx_name)
-
-

@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import unicodedata
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import regex
 
@@ -25,7 +25,8 @@ from ..ledger import LedgerRow
 from ..protect import outside
 from ..storage import stable_hash
 from ..config import Checked, param
-from ._base import drop_empty
+from .contract import Applied, Figures
+from .units import drop_empty, keep_segments
 
 VERSION = "4"
 
@@ -41,6 +42,11 @@ class Params(Checked):
     letter_variants: str = param("", choices=("", "persian"), help="a language's letter-variant table: 'persian' writes "
                                                                    "Arabic yeh and kaf (ي ك) and alef maksura as the "
                                                                    "Persian letters (ی ک)")
+
+
+@dataclass
+class NormaliseFigures(Figures):
+    nfkc_folds: Counter = field(default_factory=Counter)     # "U+FB01" -> characters folded
 
 
 def context_key(recipe, params) -> str:
@@ -175,19 +181,20 @@ def whitespace(text: str) -> str:
 
 
 def normalise_text(text: str, params: Params, apostrophe: str = "keep",
-                   protected: tuple = ()) -> tuple[str, list[str]]:
+                   protected: tuple = (), folds: Counter | None = None) -> tuple[str, list[str]]:
     """The normalised text and the names of the steps that changed it.
 
     A later step can turn repaired text into something ftfy reads as mojibake again
     (a C1 control becomes a curly quote, then an ASCII one), so while ftfy still finds
     the result suspicious the pass is repeated, a few times at most: the output is a
-    fixed point and a second run changes nothing.
+    fixed point and a second run changes nothing.  ``folds`` (if given) counts the characters
+    that NFKC folded.
     """
-    text, steps = _normalise_once(text, params, apostrophe, protected)
+    text, steps = _normalise_once(text, params, apostrophe, protected, folds)
     for _ in range(3):
         if not (params.repair_mojibake and steps and _looks_bad(text)):
             break
-        again, more = _normalise_once(text, params, apostrophe, protected)
+        again, more = _normalise_once(text, params, apostrophe, protected, folds)
         if again == text:
             break
         text, steps = again, steps + more
@@ -199,7 +206,8 @@ def _looks_bad(text: str) -> bool:
     return is_bad(text)
 
 
-def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple = ()) -> tuple[str, list[str]]:
+def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple = (),
+                    fold_counts: Counter | None = None) -> tuple[str, list[str]]:
     steps = []
 
     def step(name, new):
@@ -215,6 +223,8 @@ def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple
     if params.form == "NFKC":
         folds = compatibility_folds(text)
         if folds:
+            if fold_counts is not None:
+                fold_counts.update({f"U+{ord(c):04X}": n for c, n in folds.items()})
             steps.append("nfkc-folded:" + " ".join(f"U+{ord(c):04X}x{n}" for c, n in sorted(folds.items())))
         text = unicodedata.normalize("NFKC", text)
     else:
@@ -241,16 +251,16 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
     ctx = ctx or {"apostrophe": "keep", "protected": []}
     apostrophe, protected = ctx["apostrophe"], tuple(ctx["protected"])
     rows: list[LedgerRow] = []
+    figures = NormaliseFigures()
     for doc in docs:
         keep = []
         for i, seg in enumerate(doc["segments"]):
-            new, steps = normalise_text(seg, params, apostrophe, protected)
+            new, steps = normalise_text(seg, params, apostrophe, protected, figures.nfkc_folds)
             if steps and steps != ["whitespace"]:
                 rows.append(LedgerRow("normalise", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
                                       "normalised", ",".join(steps), None, None))
             doc["segments"][i] = new
             keep.append(bool(new))
         if not all(keep):
-            from ._base import keep_segments
             keep_segments("normalise", doc, keep, ["empty-after-normalisation"] * len(keep), [""] * len(keep), rows)
-    return drop_empty("normalise", docs, rows), rows
+    return Applied(drop_empty("normalise", docs, rows), rows, figures)

@@ -13,12 +13,14 @@ from functools import lru_cache
 
 import regex
 
+from ..casing import comparison_key
 from ..ledger import LedgerRow, remove_document
 from ..pii import PLACEHOLDER, scrub
 from ..scripts import unicode_scripts
 from ..config import Checked, param
 from ..storage import stable_hash
-from ._base import drop_empty, keep_segments
+from .contract import Applied
+from .units import drop_empty, keep_segments
 
 VERSION = "5"
 
@@ -102,7 +104,7 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
             if found and params.pii == "drop-document":
                 rows.append(remove_document("filter", doc, "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(found.items()))))
                 continue
-        keys = Counter(" ".join(s.casefold().split()) for s in doc["segments"])
+        keys = Counter(comparison_key(s) for s in doc["segments"])
         repeated = sum(v - 1 for v in keys.values())
         if len(doc["segments"]) > 2 and repeated / len(doc["segments"]) > params.max_repeated_lines:
             rows.append(remove_document("filter", doc, "repeated-lines", f"{repeated} of {len(doc['segments'])} segments repeat"))
@@ -111,7 +113,7 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
         keep_segments("filter", doc, [p is None for p in problems], [p[0] if p else None for p in problems],
                       [p[1] if p else "" for p in problems], rows)
         out.append(doc)
-    return drop_empty("filter", out, rows), rows
+    return Applied(drop_empty("filter", out, rows), rows)
 
 
 

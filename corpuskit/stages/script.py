@@ -13,7 +13,7 @@ import json
 import os
 import unicodedata
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 
 import regex
@@ -21,8 +21,9 @@ import regex
 from ..ledger import LedgerRow
 from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
-from ..scripts import unicode_scripts
-from . import transliterate as translit
+from ..scripts import char_extensions, char_script, unicode_scripts
+from .. import transliterate as translit
+from .contract import Applied, Figures
 
 
 def same_script(a: str, b: str) -> bool:
@@ -52,6 +53,11 @@ def source_tables(recipe, params) -> dict[str, str]:
     return out
 
 
+@dataclass
+class ScriptFigures(Figures):
+    round_trip: Counter = field(default_factory=Counter)    # "round trip ok" | "round trip differs" -> segments
+
+
 def context_key(recipe, params) -> str:
     tables = dict(params.tables)
     for sid, path in source_tables(recipe, params).items():
@@ -67,18 +73,6 @@ def build_context(recipe, params, cache, key):
     return {"target": (unicode_scripts(recipe.corpus.target_script) or (recipe.corpus.target_script,))[0],
             "tables": tables, "by_source": by_source,
             "letters": recipe.corpus.letters, "protected": list(recipe.corpus.protected_patterns)}
-
-
-@lru_cache(maxsize=65536)
-def char_script(ch: str) -> str:
-    from fontTools import unicodedata as ucd
-    return ucd.script(ch)
-
-
-@lru_cache(maxsize=65536)
-def char_extensions(ch: str) -> frozenset[str]:
-    from fontTools import unicodedata as ucd
-    return frozenset(ucd.script_extension(ch))
 
 
 def token_scripts(token: str) -> Counter:
@@ -255,7 +249,7 @@ def rewrite_segment(seg: str, ctx: dict, table_for_source, repair: bool):
             if table is None and script not in (target, COMMON, INHERITED):
                 table = ctx["tables"].get(script)
             if table is not None:
-                new = unicodedata.normalize("NFC", translit.apply_table(table, tok))
+                new = translit.apply_table(table, tok)
                 if new != tok:
                     translits.append((tok, new, table))
                     tok = new
@@ -267,6 +261,7 @@ def rewrite_segment(seg: str, ctx: dict, table_for_source, repair: bool):
 def apply(docs: list[dict], params: Params, ctx: dict | None):
     ctx = ctx or {"target": "Latn", "tables": {}, "by_source": {}}
     rows: list[LedgerRow] = []
+    figures = ScriptFigures()
     inverses: dict[int, translit.Table] = {}
     for doc in docs:
         seg_scripts, mixed_tokens, changed_doc = [], [], False
@@ -284,6 +279,7 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
                         inverses[id(t)] = translit.inverse_table(t)
                 ok = all(translit.round_trips(inverses[id(t)], before, after) for before, after, t in translits)
                 names = "; ".join(f"{t.source}→{t.target} ({t.name})" for t in tables.values())
+                figures.round_trip["round trip ok" if ok else "round trip differs"] += 1
                 rows.append(LedgerRow("script", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
                                       "transliterated", f"{names}; {'round trip ok' if ok else 'round trip differs'}",
                                       None, seg[:500]))
@@ -302,4 +298,4 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
             meta = json.loads(doc["meta"])
             meta["mixed_script_tokens"] = sorted(set(mixed_tokens))[:50]
             doc["meta"] = json.dumps(meta, ensure_ascii=False, sort_keys=True)
-    return docs, rows
+    return Applied(docs, rows, figures)

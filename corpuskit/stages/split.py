@@ -15,6 +15,7 @@ import numpy as np
 
 from ..config import Checked, param
 from . import dedup
+from .contract import Applied, Decisions, Services
 
 VERSION = "3"
 SPLITS = ("train", "dev", "test")
@@ -61,12 +62,12 @@ def assign(clusters: list[list[int]], names: list[str], ratios: dict, seed: int)
     return result
 
 
-def decide(runner, in_stage: str, parts, params: Params):
-    dparams = runner.recipe.stages["dedup"]
-    data = dedup.load_signatures(runner, "split", in_stage, parts, dparams)
+def decide(services: Services, in_stage: str, parts, params: Params) -> Decisions:
+    dparams = services.recipe.stages["dedup"]
+    data = dedup.load_signatures(services, "split", in_stage, parts, dparams)
     pairs, _ = dedup.near_duplicate_pairs(data, params.leak_threshold,
                                           dparams.__class__(**{**dparams.__dict__, "min_shingles": 1}),
-                                          getattr(runner, "engine", None))
+                                          services.engine)
     clustered = dedup.clusters_from_pairs(len(data), pairs)
     members = np.array([i for c in clustered for i in c], dtype=np.int64)
     name_of = dict(zip(members.tolist(), data.ids(members)))
@@ -80,14 +81,12 @@ def decide(runner, in_stage: str, parts, params: Params):
     decisions: dict[str, dict[str, str]] = {part.key: {} for part in parts}
     for row, p in zip(members.tolist(), part_of.tolist()):
         decisions[parts[p].key][name_of[row]] = cluster_name[row]
-    runner.cache.put_json("split", "report.json", {"leak_threshold": params.leak_threshold,
-                                                   "leak_clusters": len(clustered),
-                                                   "docs_in_leak_clusters": len(members)})
-    return decisions
+    return Decisions(decisions, {"leak_threshold": params.leak_threshold, "leak_clusters": len(clustered),
+                                 "docs_in_leak_clusters": len(members)})
 
 
 def apply(docs: list[dict], params: Params, decision: dict):
     """``decision`` maps a document in a near-duplicate cluster to the cluster's name."""
     for doc in docs:
         doc["split"] = split_of(decision.get(doc["id"], doc["id"]), params.ratios, params.seed)
-    return docs, []
+    return Applied(docs, [])

@@ -11,12 +11,13 @@ as it was.
 from __future__ import annotations
 
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
-from ..ledger import LedgerRow
+from ..ledger import LedgerRow, rewrite
 from ..config import Checked, param
 from ..storage import file_sha256, stable_hash
 from .. import variants_table as vt
+from .contract import Applied, Figures
 
 VERSION = "4"
 
@@ -37,6 +38,11 @@ def _paths(recipe, params):
             (("table", params.table), ("rules", params.rules), ("protected", params.protected)) if v]
 
 
+@dataclass
+class VariantFigures(Figures):
+    rewrites: Counter = field(default_factory=Counter)      # (rule, dialect) -> tokens rewritten
+
+
 def context_key(recipe, params) -> str:
     return stable_hash({k: file_sha256(p) for k, p in _paths(recipe, params)}, list(recipe.corpus.protected_patterns))
 
@@ -51,9 +57,9 @@ def build_context(recipe, params, cache, key):
 
 def apply(docs: list[dict], params: Params, mapper):
     rows: list[LedgerRow] = []
+    figures = VariantFigures()
     if mapper is None or mapper.empty:
-        return docs, rows
-    totals: Counter = Counter()
+        return Applied(docs, rows, figures)
     for doc in docs:
         n_doc = 0
         for i, seg in enumerate(doc["segments"]):
@@ -61,17 +67,8 @@ def apply(docs: list[dict], params: Params, mapper):
             if used:
                 doc["segments"][i] = new
                 n_doc += sum(used.values())
-                totals.update({(rule, doc["dialect"] or "unknown"): n for rule, n in used.items()})
+                figures.rewrites.update({(rule, doc["dialect"] or "unknown"): n for rule, n in used.items()})
+                rows.append(rewrite("variants", doc["id"], doc["seg_index"][i], "variant-rule",
+                                    ", ".join(f"{rule} x{n}" for rule, n in sorted(used.items())), seg[:500]))
         doc["variants_applied"] = n_doc
-    # One row per rule and dialect: "<rule>: <n> tokens; dialect <name>" (read back by the variants report).
-    for (rule, dialect), n in sorted(totals.items()):
-        rows.append(LedgerRow("variants", "document", "rewritten", "*", -1, 0, "variant-rule",
-                              f"{rule}: {n} tokens; dialect {dialect}", None, None))
-    return docs, rows
-
-
-def parse_rule_row(detail: str) -> tuple[str, int, str]:
-    """(rule, tokens, dialect) from a variant-rule ledger row's detail."""
-    head, _, dialect = detail.rpartition("; dialect ")
-    rule, _, n = head.rpartition(": ")
-    return rule, int(n.split()[0]), dialect
+    return Applied(docs, rows, figures)

@@ -9,9 +9,8 @@ from __future__ import annotations
 
 import io
 import re
-from collections import defaultdict
 
-from ..words import words as split_words
+from .words import words as split_words
 
 __all__ = ["train_tokenizer", "dialect_report"]
 
@@ -94,10 +93,3 @@ def dialect_report(model: bytes, docs_by_dialect: dict[str, list[str]], language
     for r in rows:
         r["gap_to_best"] = round(r["fertility"] - min(fert), 4) if r["fertility"] else None
     return rows
-
-
-def group_lines(docs, key="dialect") -> dict[str, list[str]]:
-    out = defaultdict(list)
-    for d in docs:
-        out[d.get(key) or "unknown"].extend(d["segments"])
-    return out

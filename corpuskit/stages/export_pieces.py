@@ -213,13 +213,15 @@ def _gzip_rows(rows) -> bytes:
 
 
 def _totals(rows) -> dict:
-    tot = {"documents": 0, "segments_of_documents": 0, "segments": 0}
+    tot = {"documents": 0, "segments_of_documents": 0, "segments": 0, "segments_merged": 0}
     for r in rows:
         if r["action"] == "removed" and r["unit"] == "document":
             tot["documents"] += 1
             tot["segments_of_documents"] += r["segments"]
         elif r["action"] == "removed" and r["unit"] == "segment":
             tot["segments"] += 1
+        elif r["action"] == "merged":
+            tot["segments_merged"] += 1
     return tot
 
 
@@ -268,13 +270,11 @@ class LedgerSummary:
     by_source: dict = field(default_factory=lambda: defaultdict(Counter))
     removal_examples: dict = field(default_factory=lambda: defaultdict(list))
     rewrite_by_reason: Counter = field(default_factory=Counter)
-    round_trip: Counter = field(default_factory=Counter)
-    variant_rewrites: Counter = field(default_factory=Counter)
-    nfkc_folds: Counter = field(default_factory=Counter)
     target_segments_lost: int = 0     # target-language segments of documents language ID removed whole
 
     def merge(self, stage: str, piece: dict) -> None:
-        tot = self.totals.setdefault(stage, {"documents": 0, "segments_of_documents": 0, "segments": 0})
+        tot = self.totals.setdefault(stage, {"documents": 0, "segments_of_documents": 0, "segments": 0,
+                                             "segments_merged": 0})
         for k, v in piece["totals"].items():
             tot[k] += v
         for source, tally in piece["by_source"].items():
@@ -283,9 +283,6 @@ class LedgerSummary:
             have = self.removal_examples[f"{stage}:{reason}"]
             have.extend(examples[:3 - len(have)])
         self.rewrite_by_reason.update({f"{stage}:{k}": v for k, v in piece["rewrites"].items()})
-        self.round_trip.update(piece["round_trip"])
-        self.variant_rewrites.update({(rule, dialect): n for rule, dialect, n in piece["variant_rewrites"]})
-        self.nfkc_folds.update(piece["nfkc_folds"])
         if stage == "langid":
             self.target_segments_lost += piece.get("target_segments_lost", 0)
 
@@ -293,12 +290,12 @@ class LedgerSummary:
 def summarise_ledger_rows(rows: list[dict], settings: LedgerSettings) -> dict:
     """Scrub personal data from the rows' text (in place) and count what the reports need:
     removals per stage total and per source, up to three examples per reason from
-    redistributable sources, rewrites by reason, variant rewrites, round trips, NFKC folds."""
-    from . import variants as variants_stage
+    redistributable sources, rewrites by reason.  (Stage figures such as variant rewrites come
+    from the stages' typed figures, not from the rows.)"""
     from ..pii import scrub
     by_source: dict[str, Counter] = defaultdict(Counter)
     examples: dict[str, list[str]] = defaultdict(list)
-    rewrites, round_trip, variant_rewrites, folds = Counter(), Counter(), Counter(), Counter()
+    rewrites = Counter()
     for r in rows:
         if r.get("text") and settings.scrub_pii:
             r["text"] = scrub(r["text"], settings.id_patterns, settings.regions)[0]
@@ -308,6 +305,8 @@ def summarise_ledger_rows(rows: list[dict], settings: LedgerSettings) -> dict:
             by_source[source]["segments removed"] += r["segments"]
         elif r["action"] == "removed" and r["unit"] == "segment":
             by_source[source]["segments removed"] += 1
+        elif r["action"] == "merged":
+            by_source[source]["segments merged"] += 1
         else:
             by_source.setdefault(source, Counter())
         if r["action"] == "removed" and r["unit"] in ("document", "segment"):
@@ -316,19 +315,8 @@ def summarise_ledger_rows(rows: list[dict], settings: LedgerSettings) -> dict:
                 ex.append(r["text"][:120])
         elif r["action"] == "rewritten":
             rewrites[r["reason"]] += 1
-            if r["reason"] == "variant-rule":
-                rule, n, dialect = variants_stage.parse_rule_row(r["detail"])
-                variant_rewrites[(rule, dialect)] += n
-            elif r["reason"] == "transliterated":
-                round_trip[r["detail"].rsplit("; ", 1)[-1]] += 1
-            elif r["reason"] == "normalised" and "nfkc-folded:" in r["detail"]:
-                for item in r["detail"].split("nfkc-folded:", 1)[1].split(",", 1)[0].split():
-                    code, n = item.split("x")
-                    folds[code] += int(n)
     return {"rows": len(rows), "totals": _totals(rows), "by_source": {k: dict(v) for k, v in by_source.items()},
-            "examples": dict(examples), "rewrites": dict(rewrites), "round_trip": dict(round_trip),
-            "variant_rewrites": [[rule, dialect, n] for (rule, dialect), n in sorted(variant_rewrites.items())],
-            "nfkc_folds": dict(folds),
+            "examples": dict(examples), "rewrites": dict(rewrites),
             "target_segments_lost": sum(r.get("target_segments") or 0 for r in rows
                                         if r["stage"] == "langid" and r["unit"] == "document")}
 

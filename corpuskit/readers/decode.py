@@ -14,7 +14,6 @@ text.  ``.gz`` files are read through a decompressor with an expansion limit
 from __future__ import annotations
 
 import codecs
-import gzip
 import itertools
 import os
 import zlib
@@ -379,7 +378,6 @@ def _prefer_coherent(matches):
     return max(close, key=lambda m: (m.percent_coherence, -matches.index(m)))
 
 
-
 def _prefer_sibling(chosen: str, sample: bytes, candidates: list[str]) -> str:
     """Among the chosen code page and its siblings in the candidate list, the one whose text has
     the fewest symbols between letters; the detector's choice on a tie."""
@@ -438,11 +436,3 @@ def _cut_point(blob, limit: int) -> int:
         while at > limit - 3 and blob[at] & 0xC0 == 0x80:
             at -= 1
     return at
-
-
-def open_text(path: Path, rel: str, source_id: str, encoding: str) -> TextFile:
-    return TextFile(path=path, rel=rel, source_id=source_id, encoding=encoding)
-
-
-def gzip_open(path: Path):  # pragma: no cover - convenience for callers outside readers
-    return gzip.open(path, "rt", encoding="utf-8")

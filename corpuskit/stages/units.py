@@ -1,18 +1,9 @@
-"""Helpers shared by map stages."""
+"""Helpers for stages that drop segments and documents, with a ledger row each."""
 from __future__ import annotations
 
-from typing import Any, Callable
+from typing import Callable
 
 from ..ledger import LedgerRow, remove_document, remove_segment
-from ..storage import stable_hash
-
-
-def no_context_key(recipe, params) -> str:
-    return ""
-
-
-def no_context(recipe, params, cache, key) -> Any:
-    return None
 
 
 def keep_segments(stage: str, doc: dict, keep: list[bool], reasons: list[str | None], details: list[str],
@@ -38,8 +29,3 @@ def drop_empty(stage: str, docs: list[dict], rows: list[LedgerRow], reason: str 
         else:
             rows.append(remove_document(stage, d, reason, "every segment was removed"))
     return out
-
-
-def files_key(recipe, paths: list[str]) -> str:
-    from ..storage import file_sha256
-    return stable_hash([(p, file_sha256(recipe.resolve(p, p))) for p in paths if p])

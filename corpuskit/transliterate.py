@@ -18,12 +18,13 @@ At equal position the longest source wins; among equals, the first listed.
 """
 from __future__ import annotations
 
+import unicodedata
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import regex
 
-from ..errors import RecipeError
+from .errors import RecipeError
 
 __all__ = ["Table", "Rule", "load_table", "parse_table", "apply_table", "irreversible_rules", "inverse_table",
            "round_trips", "rule_report"]
@@ -114,7 +115,7 @@ def _case(src: str, dst: str, word_upper: bool) -> str:
 
 
 def apply_table(table: Table, text: str) -> str:
-    """Transliterate ``text``; characters no rule covers are copied.
+    """Transliterate ``text``; characters no rule covers are copied; the result is in NFC.
 
     >>> t = parse_table("# corpuskit transliteration table 1\\n# from: Cyrl\\n# to: Latn\\nљ\\tlj\\nа\\ta\\nу\\tu\\nб\\tb\\nв\\tv")
     >>> apply_table(t, "Љубав"), apply_table(t, "ЉУБАВ")
@@ -149,7 +150,7 @@ def apply_table(table: Table, text: str) -> str:
         word_upper = len(whole) > 1 and whole.isupper()
         out.append(_case(text[i:j], rule.dst, word_upper))
         i = j
-    return "".join(out)
+    return unicodedata.normalize("NFC", "".join(out))   # a kept combining mark joins its new base letter
 
 
 def irreversible_rules(table: Table) -> list[tuple[Rule, str]]:
