@@ -27,7 +27,7 @@ from typing import Iterable, Iterator
 import regex
 
 from .casing import comparison_key
-from .pii import scrub
+from .pii import may_hold_personal_data, scrub
 
 __all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files"]
 
@@ -86,7 +86,7 @@ class LeakAudit:
 
     # -- checks on one string ---------------------------------------------------------------
     def _personal(self, text: str) -> list[str]:
-        if not self.scrub_pii or not text:
+        if not self.scrub_pii or not text or (not self.id_patterns and not may_hold_personal_data(text)):
             return []
         return sorted(scrub(text, self.id_patterns, self.regions)[1])
 

@@ -114,6 +114,10 @@ def _case(src: str, dst: str, word_upper: bool) -> str:
     return dst
 
 
+_WORD_FROM = regex.compile(r"[\p{L}\p{M}]*")
+_WORD_UNTIL = regex.compile(r"(?r)[\p{L}\p{M}]*")
+
+
 def apply_table(table: Table, text: str) -> str:
     """Transliterate ``text``; characters no rule covers are copied; the result is in NFC.
 
@@ -144,8 +148,8 @@ def apply_table(table: Table, text: str) -> str:
             i += 1
             continue
         j = i + len(rule.src)
-        word = regex.match(r"[\p{L}\p{M}]*", text[i:]).group() + ""
-        left = regex.search(r"[\p{L}\p{M}]*$", text[:i]).group()
+        word = _WORD_FROM.match(text, i).group()
+        left = _WORD_UNTIL.match(text, 0, i).group()      # reverse match ending at i: no slice copies
         whole = left + word
         word_upper = len(whole) > 1 and whole.isupper()
         out.append(_case(text[i:j], rule.dst, word_upper))

@@ -134,16 +134,17 @@ class ScriptInventory:
         redistributed) its text gives no example contexts."""
         from ..pii import PLACEHOLDER
         from ..scripts import char_script
+        source, dialect = doc["source"], doc.get("dialect") or "unknown"
         for seg in doc["segments"]:
             if "<" in seg:
                 seg = PLACEHOLDER.sub(" ", seg)      # <PHONE> is the pipeline's, not the text's
-            for i, ch in enumerate(seg):
+            for ch, n in Counter(seg).items():       # counted in C; Python visits each distinct character once
                 if ch.isspace():
                     continue
-                key = (doc["source"], doc.get("dialect") or "unknown", char_script(ch), ch)
-                self.chars[key] += 1
-                if key not in self.examples:
-                    self.examples[key] = _context(seg, i) if examples else "(restricted source)"
+                key = (source, dialect, char_script(ch), ch)
+                self.chars[key] += n
+                if key not in self.examples:         # the context of its first occurrence
+                    self.examples[key] = _context(seg, seg.index(ch)) if examples else "(restricted source)"
 
     def state(self) -> list:
         return [[*key, n, self.examples[key]] for key, n in sorted(self.chars.items())]

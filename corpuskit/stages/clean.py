@@ -15,6 +15,7 @@ from __future__ import annotations
 import json
 from collections import Counter
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -61,11 +62,18 @@ WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}ʼ'’]+")
 HYPHENATED = regex.compile(r"[\p{L}\p{M}]+(?:-[\p{L}\p{M}]+)+")
 SPACE_BEFORE_PUNCT = regex.compile(r"\s+([.,!?;:…])")
 NAV_SEPARATORS = regex.compile(r"\s[|»›·•/]\s")
+_DIGITS = regex.compile(r"\d+")
+
+
+@lru_cache(maxsize=16)
+def _pattern(text: str):
+    """A recipe's pattern, compiled once (case-insensitive, as the recipe reference says)."""
+    return regex.compile(text, flags=regex.I)
 
 
 def line_key(line: str) -> str:
     """Lines compare equal across pages after digits become # and case and spacing are folded."""
-    return " ".join(regex.sub(r"\d+", "#", line.casefold()).split())
+    return " ".join(_DIGITS.sub("#", line.casefold()).split())
 
 
 def _pages(doc: dict) -> list[list[int]]:
@@ -299,7 +307,7 @@ def clean_ocr(doc: dict, params: Params, headers: set[str], vocab: set[str], row
 
 def _message_key(doc: dict, params: Params) -> str:
     text = " ".join(doc["segments"])
-    text = regex.sub(params.forward_pattern, "", text, flags=regex.I)
+    text = _pattern(params.forward_pattern).sub("", text)
     return comparison_key(text)
 
 
@@ -308,14 +316,14 @@ def _message_digest(doc: dict, params: Params) -> int:
 
 
 def _is_forwarded(doc: dict, params: Params) -> bool:
-    return bool(doc["segments"]) and bool(regex.match(params.forward_pattern, doc["segments"][0], flags=regex.I))
+    return bool(doc["segments"]) and bool(_pattern(params.forward_pattern).match(doc["segments"][0]))
 
 
 def clean_message(doc: dict, params: Params, first: dict[str, str], rows: list[LedgerRow]) -> dict | None:
     """``first`` maps the digest (16 hex digits) of a forwarded message's text to the first
     message with that text."""
     text = " ".join(doc["segments"]).strip()
-    if regex.match(params.system_pattern, text, flags=regex.I):
+    if _pattern(params.system_pattern).match(text):
         rows.append(remove_document("clean", doc, "system-message", text[:200]))
         return None
     meta = json.loads(doc["meta"])
@@ -325,7 +333,7 @@ def clean_message(doc: dict, params: Params, first: dict[str, str], rows: list[L
         if original and original != doc["id"]:
             rows.append(remove_document("clean", doc, "forwarded-copy", "a forwarded copy of an earlier message", dup_of=original))
             return None
-        doc["segments"][0] = regex.sub(params.forward_pattern, "", doc["segments"][0], flags=regex.I)
+        doc["segments"][0] = _pattern(params.forward_pattern).sub("", doc["segments"][0])
         rows.append(LedgerRow("clean", "segment", "rewritten", doc["id"], doc["seg_index"][0], 0, "forward-marker",
                               "forward marker removed; kept as forwarded", None, None))
     doc["meta"] = json.dumps(meta, ensure_ascii=False, sort_keys=True)

@@ -217,18 +217,23 @@ def target_scores(model, lines: list[str], language: str) -> tuple[np.ndarray, l
 
 
 def _ensemble_scores(models: list, lines: list[str], language: str) -> tuple[np.ndarray, list[str]]:
-    total = np.zeros(len(lines))
-    votes: list[Counter] = [Counter() for _ in lines]
+    # Each distinct line is prepared once and predicted once per model (repeated lines are common:
+    # greetings, forwarded messages); the sums are taken in the same order as line by line.
+    index: dict[str, int] = {}
+    rows = [index.setdefault(prepare_line(x) + "\n", len(index)) for x in lines]
+    votes: list[dict[str, float]] = [{} for _ in index]
     for m in models:
         n = _label_count(m)
         predict = m.f.predict
-        for i, x in enumerate(lines):
-            for p, lab in predict(" ".join(x.casefold().split()) + "\n", n, 0.0, "strict"):
-                votes[i][lab[9:]] += p
-    for i, v in enumerate(votes):
-        total[i] = sum(p for lab, p in v.items() if is_target(lab, language))
+        for v, x in zip(votes, index):
+            for p, lab in predict(x, n, 0.0, "strict"):
+                label = lab[9:]
+                v[label] = v.get(label, 0) + p
+    target = {lab: is_target(lab, language) for lab in {lab for v in votes for lab in v}}
+    total = np.array([sum(p for lab, p in v.items() if target[lab]) for v in votes], dtype=float)
     best = [max(sorted(v), key=v.get) if v else UND for v in votes]
-    return np.minimum(total / len(models), 1.0), best
+    scores = np.minimum(total / len(models), 1.0)
+    return scores[rows] if rows else np.zeros(0), [best[r] for r in rows]
 
 
 def cross_validate(examples: list[tuple[str, str]], params: Params, language: str, workdir: Path,

@@ -155,6 +155,7 @@ def digits(text: str) -> str:
 
 _SPACE_RUN = regex.compile(r"[\p{Zs}\t]+")
 _MARK = regex.compile(r"\p{M}")
+_SPACE_TO_CHANGE = regex.compile(r"[\p{Zs}\t]{2}|[[\p{Zs}\t]--\x20]|^[\p{Zs}\t]|[\p{Zs}\t]$", regex.V1)
 
 
 def whitespace(text: str) -> str:
@@ -165,8 +166,8 @@ def whitespace(text: str) -> str:
     >>> whitespace("  a \u00a0\u0301 b  ")
     'a \xa0\u0301 b'
     """
-    if not _SPACE_RUN.search(text):
-        return text
+    if not _SPACE_TO_CHANGE.search(text):
+        return text                       # single U+0020 between words only: nothing changes
 
     def collapse(m):
         run, after = m.group(), m.end()

@@ -47,6 +47,12 @@ URL = regex.compile(r"https?://\S+|www\.\S+")
 EMOJI = regex.compile(r"[\p{Extended_Pictographic}\p{Emoji_Modifier}]")
 
 
+DIGIT = regex.compile(r"\p{Nd}")
+PUNCTUATION = regex.compile(r"\p{P}")
+SYMBOL = regex.compile(r"[\p{S}--\p{Extended_Pictographic}]", flags=regex.V1)
+LETTER = regex.compile(r"\p{L}")
+
+
 @lru_cache(maxsize=8)
 def _repeat(n: int):
     return regex.compile(r"(.)\1{%d,}" % n)
@@ -67,16 +73,16 @@ def segment_problem(text: str, params: Params, script: str, target: str) -> tupl
         return "repeated-characters", f"'{m.group(1)}' repeated {len(m.group())} times"
     url_chars = sum(len(u) for u in URL.findall(bare))
     shares = [
-        ("digits", len(regex.findall(r"\p{Nd}", bare)) / n, params.max_digit_share),
-        ("punctuation", len(regex.findall(r"\p{P}", bare)) / n, params.max_punct_share),
-        ("symbols", len(regex.findall(r"[\p{S}--\p{Extended_Pictographic}]", bare, flags=regex.V1)) / n, params.max_symbol_share),
+        ("digits", len(DIGIT.findall(bare)) / n, params.max_digit_share),
+        ("punctuation", len(PUNCTUATION.findall(bare)) / n, params.max_punct_share),
+        ("symbols", len(SYMBOL.findall(bare)) / n, params.max_symbol_share),
         ("urls", url_chars / n, params.max_url_share),
         ("emoji", len(EMOJI.findall(bare)) / n, params.max_emoji_share),
     ]
     for name, share, limit in shares:
         if share > limit:
             return f"too-many-{name}", f"{share:.2f} > {limit}"
-    letters = regex.findall(r"\p{L}", bare)
+    letters = LETTER.findall(bare)
     if letters:
         in_script = len(_in_script(target).findall("".join(letters)))
         if in_script / len(letters) < params.min_script_share:

@@ -267,9 +267,11 @@ def apply(docs: list[dict], params: Params, ctx: dict | None):
         seg_scripts, mixed_tokens, changed_doc = [], [], False
         source_table = ctx["by_source"].get(doc["source"])
         for i, seg in enumerate(doc["segments"]):
-            if _scripts_in(seg) <= 1 and source_table is None and text_script(seg) in (ctx["target"], COMMON, INHERITED):
-                seg_scripts.append(text_script(seg))   # one script, the target's: nothing to rewrite
-                continue
+            if _scripts_in(seg) <= 1 and source_table is None:
+                found = text_script(seg)
+                if found in (ctx["target"], COMMON, INHERITED):
+                    seg_scripts.append(found)          # one script, the target's: nothing to rewrite
+                    continue
             new, translits, repairs, mixed = rewrite_segment(seg, ctx, source_table, params.repair_confusables)
             mixed_tokens += mixed
             if translits:
