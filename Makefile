@@ -29,6 +29,7 @@ fuzz: venv
 	HYPOTHESIS_PROFILE=long $(BIN)/python -m pytest -q -p no:cacheprovider
 
 bench: venv
+	$(BIN)/python benchmarks/pipeline.py --mb 10 --pairs 2
 	$(BIN)/python benchmarks/normalise.py
 	$(BIN)/python benchmarks/dedup.py
 	$(BIN)/python benchmarks/langid.py

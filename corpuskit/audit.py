@@ -152,8 +152,16 @@ class LeakAudit:
                 if record.get("source") in self.restricted_sources:
                     self.hits.append(Hit(rel, n, "restricted-source", "source"))
                 for key, value in record.items():
+                    if key in SEGMENT_FIELDS:
+                        texts = list(_strings(value))
+                        # One quick test over all of a document's segments: most hold nothing any
+                        # personal-data detector could match, and then no segment needs one.
+                        if self.id_patterns or may_hold_personal_data("\n".join(texts)):
+                            for text in texts:
+                                self.check(text, rel, n, key, segment=True)
+                        continue
                     for text in _strings(value):
-                        self.check(text, rel, n, key, segment=key in SEGMENT_FIELDS)
+                        self.check(text, rel, n, key)
 
     def _scan_csv(self, path: Path, rel: str) -> None:
         with open(path, encoding="utf-8", newline="") as f:

@@ -102,7 +102,7 @@ def _summary(result) -> None:
         ok = cd["holds"] and cs["holds"]
         out.print("Conservation " + ("[green]holds[/]" if ok else "[red]FAILS[/]") + f": documents {cd['in']} = "
                   f"{cd['kept']} kept + {cd['removed']} removed;\n  segments {cs['in']} = {cs['kept']} kept + "
-                  f"{cs['removed']} removed + {cs.get('merged', 0)} merged into a neighbour", highlight=False)
+                  f"{cs['removed']} removed ({cs.get('merged_into_neighbours', 0)} of them merged into a neighbour)", highlight=False)
 
 
 def _warnings(warnings: list[str], limit: int = 20) -> None:

@@ -40,20 +40,31 @@ def imported_modules(module_name: str) -> frozenset[str]:
     todo = [module_name]
     while todo:
         name = todo.pop()
-        if name in seen:
-            continue
-        spec = importlib.util.find_spec(name)
-        if spec is None or not spec.origin or not spec.origin.endswith(".py"):
+        if name in seen or _source(name) is None:
             continue
         seen.add(name)
-        package = name if spec.submodule_search_locations else name.rpartition(".")[0]
-        tree = ast.parse(Path(spec.origin).read_text("utf-8"))
-        for node in ast.walk(tree):
-            if isinstance(node, ast.ImportFrom):
-                todo += _resolve(name, package, node)
-            elif isinstance(node, ast.Import):
-                todo += [a.name for a in node.names if a.name.startswith(PACKAGE)]
+        todo += _direct_imports(name)
     return frozenset(seen)
+
+
+@lru_cache(maxsize=None)
+def _source(name: str) -> str | None:
+    spec = importlib.util.find_spec(name)
+    return spec.origin if spec is not None and spec.origin and spec.origin.endswith(".py") else None
+
+
+@lru_cache(maxsize=None)
+def _direct_imports(name: str) -> tuple[str, ...]:
+    """The corpuskit modules one module's source names in its imports (parsed once per process)."""
+    spec = importlib.util.find_spec(name)
+    package = name if spec.submodule_search_locations else name.rpartition(".")[0]
+    found: list[str] = []
+    for node in ast.walk(ast.parse(Path(spec.origin).read_text("utf-8"))):
+        if isinstance(node, ast.ImportFrom):
+            found += _resolve(name, package, node)
+        elif isinstance(node, ast.Import):
+            found += [a.name for a in node.names if a.name.startswith(PACKAGE)]
+    return tuple(found)
 
 
 @lru_cache(maxsize=None)
@@ -62,5 +73,5 @@ def code_version(module_name: str) -> str:
     h = hashlib.sha256()
     for name in sorted(imported_modules(module_name)):
         h.update(name.encode())
-        h.update(Path(importlib.util.find_spec(name).origin).read_bytes())
+        h.update(Path(_source(name)).read_bytes())
     return h.hexdigest()[:16]

@@ -1,9 +1,11 @@
-"""The ledger: one row per removed, merged or rewritten unit, and the conservation check.
+"""The ledger: one row per removed or rewritten unit, and the conservation check.
 
-``documents in = documents kept + documents removed``, and ``segments in =
-segments kept + segments removed + segments merged``, where a removed document
-takes its remaining segments with it and a merged segment's text lives on in
-the segment it was joined to (a transcript's cue fragments, a broken OCR line).
+``documents in = documents kept + documents removed`` and the same for
+segments, where a removed document takes its remaining segments with it.
+A segment joined into a neighbour (a transcript's cue fragment, a broken OCR
+line) leaves as a unit but its text lives on: its row is a removal with
+``merged_into`` set to the position of the segment that took it, and the
+counts show such merges apart from the removals proper.
 """
 from __future__ import annotations
 
@@ -19,7 +21,7 @@ __all__ = ["LedgerRow", "LEDGER_SCHEMA", "remove_document", "remove_segment", "m
 LEDGER_SCHEMA = pa.schema([
     ("stage", pa.string()),
     ("unit", pa.string()),          # document | segment
-    ("action", pa.string()),        # removed | merged | rewritten
+    ("action", pa.string()),        # removed | rewritten
     ("doc_id", pa.string()),
     ("seg_index", pa.int32()),      # position at ingest; -1 for a document row
     ("segments", pa.int32()),       # segments leaving with a removed document
@@ -30,6 +32,7 @@ LEDGER_SCHEMA = pa.schema([
     ("lang", pa.string()),          # the language label language ID gave the unit (a document: its majority)
     ("lang_score", pa.float32()),   # P(target language) of a segment; a document's mean over its target segments
     ("target_segments", pa.int32()),  # a removed document: how many of its segments were in the target language
+    ("merged_into", pa.int32()),    # a segment joined into a neighbour: that neighbour's position at ingest
 ])
 
 
@@ -48,6 +51,7 @@ class LedgerRow:
     lang: str | None = None
     lang_score: float | None = None
     target_segments: int | None = None
+    merged_into: int | None = None
 
     def as_dict(self) -> dict[str, Any]:
         return asdict(self)
@@ -75,10 +79,10 @@ def remove_segment(stage: str, doc: dict, position: int, reason: str, detail: st
                      scores[position] if position < len(scores) else None)
 
 
-def merge_segment(stage: str, doc: dict, position: int, reason: str, detail: str = "") -> LedgerRow:
-    """A segment joined into a neighbour: its text is not lost, so it is not a removal."""
-    return LedgerRow(stage, "segment", "merged", doc["id"], int(doc["seg_index"][position]), 1, reason, detail, None,
-                     doc["segments"][position][:500])
+def merge_segment(stage: str, doc: dict, position: int, into: int, reason: str, detail: str = "") -> LedgerRow:
+    """A segment joined into the segment at ingest position ``into``: the unit leaves, its text does not."""
+    return LedgerRow(stage, "segment", "removed", doc["id"], int(doc["seg_index"][position]), 1, reason, detail, None,
+                     doc["segments"][position][:500], merged_into=int(into))
 
 
 def rewrite(stage: str, doc_id: str, seg_index: int, reason: str, detail: str = "", text: str | None = None) -> LedgerRow:
@@ -94,7 +98,7 @@ class Counts:
     segs_out: int = 0
     removed: Counter | None = None      # reason -> documents or segments removed
     rewritten: Counter | None = None    # reason -> rewrites
-    merged: Counter | None = None       # reason -> segments joined into a neighbour
+    merged: Counter | None = None       # reason -> segments joined into a neighbour (not in ``removed``)
 
     def __post_init__(self) -> None:
         self.removed = Counter(self.removed or {})
@@ -127,10 +131,10 @@ def count_partition(docs_in: Iterable[dict], docs_out: Iterable[dict], rows: Ite
     for row in rows:
         r = row if isinstance(row, dict) else row.as_dict()
         key = f"{r['unit']}:{r['reason']}"
-        if r["action"] == "removed":
-            c.removed[key] += 1
-        elif r["action"] == "merged":
+        if r["action"] == "removed" and r.get("merged_into") is not None:
             c.merged[key] += 1
+        elif r["action"] == "removed":
+            c.removed[key] += 1
         else:
             c.rewritten[key] += 1
     return c
@@ -141,7 +145,9 @@ def conservation(stage_ledgers: dict[str, dict[str, int]], docs_in: int, segs_in
     """Check in = kept + removed for documents and segments over a whole run.
 
     ``stage_ledgers`` maps each stage to its removal totals from the ledger:
-    ``{"documents": n, "segments_of_documents": m, "segments": k, "segments_merged": j}``.
+    ``{"documents": n, "segments_of_documents": m, "segments": k, "segments_merged": j}``, where
+    ``segments`` counts every segment row (merges included) and ``segments_merged`` the merges
+    among them, shown apart.
     """
     docs_removed = sum(v["documents"] for v in stage_ledgers.values())
     segs_removed = sum(v["segments"] + v["segments_of_documents"] for v in stage_ledgers.values())
@@ -149,6 +155,6 @@ def conservation(stage_ledgers: dict[str, dict[str, int]], docs_in: int, segs_in
     return {
         "documents": {"in": docs_in, "kept": docs_kept, "removed": docs_removed,
                       "holds": docs_in == docs_kept + docs_removed},
-        "segments": {"in": segs_in, "kept": segs_kept, "removed": segs_removed, "merged": segs_merged,
-                     "holds": segs_in == segs_kept + segs_removed + segs_merged},
+        "segments": {"in": segs_in, "kept": segs_kept, "removed": segs_removed, "merged_into_neighbours": segs_merged,
+                     "holds": segs_in == segs_kept + segs_removed},
     }

@@ -154,13 +154,13 @@ def run_survey_task(cache_root: str, stage_name: str, params: Any, in_stage: str
 def check_partition(stage_name: str, key: str, n_in: int, segs_in: int, docs_out: list, rows: list) -> None:
     """A stage may not lose a document or segment without a ledger row."""
     removed_docs = [r for r in rows if r.unit == "document" and r.action == "removed"]
-    removed_segs = sum(1 for r in rows if r.unit == "segment" and r.action in ("removed", "merged"))
+    removed_segs = sum(1 for r in rows if r.unit == "segment" and r.action == "removed")
     segs_out = sum(len(d["segments"]) for d in docs_out)
     if n_in != len(docs_out) + len(removed_docs) or \
             segs_in != segs_out + removed_segs + sum(r.segments for r in removed_docs):
         raise DataError(f"stage '{stage_name}' lost units without a ledger row in partition {key} "
                         f"(documents {n_in} -> {len(docs_out)} + {len(removed_docs)} removed; "
-                        f"segments {segs_in} -> {segs_out} + {removed_segs} removed or merged); this is a bug, please report it.")
+                        f"segments {segs_in} -> {segs_out} + {removed_segs} removed); this is a bug, please report it.")
 
 
 WRONG_SCRIPT_SHARE = 0.9    # a stage that removes this share of segments for their script stops the run

@@ -111,7 +111,7 @@ def test_map_stage_conserves_units(stage_inputs, name):
         out, rows, _ = _run(stage, docs, recipe.stages[name], contexts[name][src])
         check_partition(name, str(i), len(docs), _segments(docs), out, rows)   # raises on a unit unaccounted for
         gone_docs = [r for r in rows if r.unit == "document" and r.action == "removed"]
-        gone_segs = [r for r in rows if r.unit == "segment" and r.action in ("removed", "merged")]
+        gone_segs = [r for r in rows if r.unit == "segment" and r.action == "removed"]
         assert len(docs) == len(out) + len(gone_docs)
         assert _segments(docs) == _segments(out) + len(gone_segs) + sum(r.segments for r in gone_docs)
 
@@ -392,3 +392,22 @@ def test_a_stage_added_by_one_registry_entry_runs_and_is_cached(tmp_path, monkey
     again = run(recipe, tmp_path / "out", workers=1)
     assert again.stage("upper").computed == 0 and again.stage("upper").reused == upper.computed
     assert recipe_module.load_recipe(recipe).stages["upper"] == UpperParams()
+
+
+# -- joins: units that leave while their text stays -----------------------------------------------
+
+def test_joined_segments_are_ledger_removals_shown_apart_as_merges(demo_run):
+    """The contract's check holds on the ledger alone (segments in = kept + segment rows + segments
+    of removed documents), and the joins among the rows are the merges the counts show apart."""
+    from corpuskit.api import load_ledger
+    ledger = load_ledger(demo_run.out)
+    cons = demo_run.conservation["segments"]
+    seg_rows = ledger[(ledger.unit == "segment") & (ledger.action == "removed")]
+    doc_rows = ledger[(ledger.unit == "document") & (ledger.action == "removed")]
+    assert cons["in"] == cons["kept"] + len(seg_rows) + int(doc_rows.segments.sum())
+    merged = seg_rows[seg_rows.merged_into.notna()]
+    assert len(merged) > 0 and set(merged.reason) <= {"joined", "line-joined", "dehyphenated"}
+    assert (merged.merged_into != merged.seg_index).all()
+    counted = sum(sum(s.counts.merged.values()) for s in demo_run.stages)
+    assert counted == len(merged) == cons["merged_into_neighbours"]
+    assert not any(k.split(":", 1)[1] in ("joined", "line-joined") for s in demo_run.stages for k in s.counts.removed)

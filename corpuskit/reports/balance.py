@@ -135,16 +135,16 @@ class ScriptInventory:
         from ..pii import PLACEHOLDER
         from ..scripts import char_script
         source, dialect = doc["source"], doc.get("dialect") or "unknown"
-        for seg in doc["segments"]:
-            if "<" in seg:
-                seg = PLACEHOLDER.sub(" ", seg)      # <PHONE> is the pipeline's, not the text's
-            for ch, n in Counter(seg).items():       # counted in C; Python visits each distinct character once
-                if ch.isspace():
-                    continue
-                key = (source, dialect, char_script(ch), ch)
-                self.chars[key] += n
-                if key not in self.examples:         # the context of its first occurrence
-                    self.examples[key] = _context(seg, seg.index(ch)) if examples else "(restricted source)"
+        # <PHONE> and its kin are the pipeline's, not the text's
+        segments = [PLACEHOLDER.sub(" ", s) if "<" in s else s for s in doc["segments"]]
+        for ch, n in Counter("\n".join(segments)).items():   # counted in C; each distinct character once
+            if ch.isspace():
+                continue
+            key = (source, dialect, char_script(ch), ch)
+            self.chars[key] += n
+            if key not in self.examples:             # the context of its first occurrence
+                seg = next(s for s in segments if ch in s)
+                self.examples[key] = _context(seg, seg.index(ch)) if examples else "(restricted source)"
 
     def state(self) -> list:
         return [[*key, n, self.examples[key]] for key, n in sorted(self.chars.items())]

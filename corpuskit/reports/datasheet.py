@@ -144,8 +144,9 @@ def render(recipe, facts: RunFacts) -> tuple[str, list[str]]:
             out.append(f"Conservation check: documents {cons['documents']['in']} in = {cons['documents']['kept']} kept + "
                        f"{cons['documents']['removed']} removed ({'holds' if cons['documents']['holds'] else 'FAILS'}); "
                        f"segments {cons['segments']['in']} in = {cons['segments']['kept']} kept + "
-                       f"{cons['segments']['removed']} removed + {cons['segments'].get('merged', 0)} merged into the "
-                       f"segment before them ({'holds' if cons['segments']['holds'] else 'FAILS'}). "
+                       f"{cons['segments']['removed']} removed ({'holds' if cons['segments']['holds'] else 'FAILS'}; "
+                       f"{cons['segments'].get('merged_into_neighbours', 0)} of the removed segments were joined into "
+                       "a neighbour, their text kept). "
                        "Every removal and rewrite is in the ledger (`private/ledger.jsonl.gz`, not for publication).\n")
             ts = tok.get("summary", {})
             if ts.get("trained"):

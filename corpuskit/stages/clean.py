@@ -189,14 +189,14 @@ def _drop(doc: dict, drop: dict[int, tuple[str, str]], rows: list[LedgerRow]) ->
 
 def _join(doc: dict, groups: list[list[int]], reasons: dict[int, str], rows: list[LedgerRow], sep: dict[int, str],
           details: dict[int, str] | None = None) -> dict:
-    """Join each group of positions into its first segment; the others leave as merged (a ledger row each)."""
+    """Join each group of positions into its first segment; the others leave with a ledger row each (merged_into set)."""
     segs, idx = [], []
     for group in groups:
         text = doc["segments"][group[0]]
         for j in group[1:]:
             joiner = sep.get(j, " ")
             where = f"joined into segment {doc['seg_index'][group[0]]}"
-            rows.append(merge_segment("clean", doc, j, reasons.get(j, "joined"),
+            rows.append(merge_segment("clean", doc, j, doc["seg_index"][group[0]], reasons.get(j, "joined"),
                                       f"{details[j]}; {where}" if details and j in details else where))
             text = (text[:-1] if joiner == "" and text and text[-1] in "-\u00ad\u00ac\u2010" else text) + joiner + doc["segments"][j].lstrip()
         segs.append(text)

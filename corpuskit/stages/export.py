@@ -94,7 +94,7 @@ SOURCE_COLUMNS = ["source", "medium", "dialect", "output", "documents in", "docu
 
 
 def source_counts(recipe, by_source: dict[str, Counter]) -> list[dict]:
-    """Per source: what came in (kept plus removed plus merged, as the ledger counts it) and what was kept."""
+    """Per source: what came in (kept plus removed, as the ledger counts it) and what was kept."""
     specs = {s.id: s for s in recipe.sources}
     rows = []
     for sid, c in by_source.items():
@@ -102,7 +102,7 @@ def source_counts(recipe, by_source: dict[str, Counter]) -> list[dict]:
         rows.append({"source": sid, "medium": spec.medium if spec else "", "dialect": (spec.dialect if spec else "") or "mixed",
                      "output": "public" if spec is None or spec.redistributable else "restricted",
                      "documents in": c["documents kept"] + c["documents removed"], "documents kept": c["documents kept"],
-                     "segments in": c["segments kept"] + c["segments removed"] + c["segments merged"],
+                     "segments in": c["segments kept"] + c["segments removed"],
                      "segments kept": c["segments kept"]})
     return rows
 

@@ -220,8 +220,8 @@ def _totals(rows) -> dict:
             tot["segments_of_documents"] += r["segments"]
         elif r["action"] == "removed" and r["unit"] == "segment":
             tot["segments"] += 1
-        elif r["action"] == "merged":
-            tot["segments_merged"] += 1
+            if r.get("merged_into") is not None:
+                tot["segments_merged"] += 1
     return tot
 
 
@@ -305,8 +305,6 @@ def summarise_ledger_rows(rows: list[dict], settings: LedgerSettings) -> dict:
             by_source[source]["segments removed"] += r["segments"]
         elif r["action"] == "removed" and r["unit"] == "segment":
             by_source[source]["segments removed"] += 1
-        elif r["action"] == "merged":
-            by_source[source]["segments merged"] += 1
         else:
             by_source.setdefault(source, Counter())
         if r["action"] == "removed" and r["unit"] in ("document", "segment"):
