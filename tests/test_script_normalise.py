@@ -156,3 +156,13 @@ def test_confusable_repair_only_into_words_of_the_orthography():
     assert repair_token("x\u0430p", "Latn", letters) == ("x\u0430p", True)
     # no orthography given: the look-alike is written
     assert repair_token("x\u0430p", "Latn", "") == ("xap", False)
+
+
+@settings(max_examples=2000, deadline=None)
+@given(st.text(alphabet=st.characters(max_codepoint=127), max_size=40))
+def test_ascii_text_is_never_mojibake_for_ftfy(text):
+    # normalise skips ftfy on ASCII text; ftfy's own badness test (ftfy.badness.is_bad, the
+    # reference) must agree that such text never looks like mojibake.
+    from ftfy.badness import is_bad
+    from corpuskit.stages.normalise import mojibake
+    assert not is_bad(text) and mojibake(text) == (text, "")

@@ -107,6 +107,8 @@ def mojibake(text: str) -> tuple[str, str]:
     >>> mojibake("bÉ›lÉ› kamÉ›")[0]
     'bɛlɛ kamɛ'
     """
+    if text.isascii():
+        return text, ""      # mojibake is non-ASCII by nature: ftfy's patterns all need such a character
     import ftfy
     from ftfy.badness import badness, is_bad
 
@@ -204,7 +206,7 @@ def normalise_text(text: str, params: Params, apostrophe: str = "keep",
 
 def _looks_bad(text: str) -> bool:
     from ftfy.badness import is_bad
-    return is_bad(text)
+    return not text.isascii() and is_bad(text)
 
 
 def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple = (),
