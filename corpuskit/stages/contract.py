@@ -113,7 +113,7 @@ class Services:
     def rest(self, idle: bool = False) -> None:
         """Let the engine free memory before work in this process (``idle``: workers sleep)."""
         if hasattr(self.engine, "rest"):
-            self.engine.rest(idle=idle) if idle else self.engine.rest()
+            self.engine.rest(idle=idle)
 
     def warn(self, message: str) -> None:
         self.warnings.append(message)
