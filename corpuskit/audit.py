@@ -29,7 +29,7 @@ import regex
 from .casing import comparison_key
 from .pii import may_hold_personal_data, scrub
 
-__all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files"]
+__all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files", "scan_files"]
 
 LEAK_MIN_CHARS = 20          # shorter restricted segments ("ok", "thank you") are not tracked
 LEAK_PREFIX_CHARS = 40       # a report cell shorter than a restricted segment is a leak from this length on
@@ -40,6 +40,8 @@ TEXT_COLUMNS = {"text", "example", "examples", "variant_examples", "canonical_ex
 SEGMENT_FIELDS = {"segments", "original"}
 _DATA_URI = regex.compile(r"data:[\w/+.-]+;base64,[A-Za-z0-9+/=]+")
 _TAG = regex.compile(r"<[^>]*>")
+MEMO_CHARS = 200             # strings up to this long are judged once per audit ...
+MEMO_SIZE = 200_000          # ... remembering at most this many at a time
 _NUMBER = regex.compile(r"^-?\d+(?:\.\d+)?(?:e-?\d+)?$")
 
 
@@ -77,6 +79,7 @@ class LeakAudit:
     id_patterns: tuple = ()
     regions: tuple = ()
     scrub_pii: bool = True
+    _memo: dict = field(default_factory=dict, init=False, repr=False, compare=False)
     hits: list[Hit] = field(default_factory=list)
 
     def __post_init__(self):
@@ -120,16 +123,33 @@ class LeakAudit:
               example: bool = False) -> None:
         """Every check on one string: personal data; restricted text (report cells and lines that
         may quote segments); real names (anywhere but segment text and quoted examples)."""
-        for kind in self._personal(text):
-            self.hits.append(Hit(file, line, f"personal-data:{kind}", where))
+        for kind in self._verdict(text, segment, example):
+            self.hits.append(Hit(file, line, kind, where))
+
+    def _verdict(self, text: str, segment: bool, example: bool) -> tuple[str, ...]:
+        """What ``check`` finds in a string; short strings (field values such as language tags,
+        sources and licences repeat in every record) are judged once."""
+        remember = len(text) <= MEMO_CHARS
+        if remember:
+            known = self._memo.get((text, segment, example))
+            if known is not None:
+                return known
+        kinds = [f"personal-data:{kind}" for kind in self._personal(text)]
         if not segment and self.restricted_texts and self._restricted(text):
-            self.hits.append(Hit(file, line, "restricted-text", where))
+            kinds.append("restricted-text")
         if not segment and not example and self._names is not None and self._names.search(text):
-            self.hits.append(Hit(file, line, "real-name", where))
+            kinds.append("real-name")
+        found = tuple(kinds)
+        if remember:
+            if len(self._memo) >= MEMO_SIZE:
+                self._memo.clear()
+            self._memo[(text, segment, example)] = found
+        return found
 
     # -- files ---------------------------------------------------------------------------------
-    def scan(self, out: Path) -> list[Hit]:
-        for path in public_files(out):
+    def scan(self, out: Path, files: Iterable[Path] | None = None) -> list[Hit]:
+        """Scan ``files`` of the output folder ``out`` (default: every public file); all hits so far."""
+        for path in public_files(out) if files is None else files:
             rel = str(path.relative_to(out))
             name = path.name
             if name.endswith(".jsonl.gz"):
@@ -160,7 +180,7 @@ class LeakAudit:
                             for text in texts:
                                 self.check(text, rel, n, key, segment=True)
                         continue
-                    for text in _strings(value):
+                    for text in dict.fromkeys(_strings(value)):   # a field's repeated values once
                         self.check(text, rel, n, key)
 
     def _scan_csv(self, path: Path, rel: str) -> None:
@@ -186,15 +206,22 @@ class LeakAudit:
                     self.check(line.rstrip("\n"), rel, n, segment=segments)
 
 
+def scan_files(checker: LeakAudit, out: Path, files: list[Path]) -> list[Hit]:
+    """The hits ``checker`` finds in ``files`` alone (a task a worker can run)."""
+    before = len(checker.hits)
+    checker.scan(out, files)
+    return checker.hits[before:]
+
+
 def _strings(value) -> Iterator[str]:
     if isinstance(value, str):
         yield value
-    elif isinstance(value, dict):
-        for v in value.values():
-            yield from _strings(v)
-    elif isinstance(value, list):
-        for v in value:
-            yield from _strings(v)
+    elif isinstance(value, (dict, list)):
+        for v in (value.values() if isinstance(value, dict) else value):
+            if isinstance(v, str):
+                yield v
+            elif isinstance(v, (dict, list)):
+                yield from _strings(v)
 
 
 def restricted_keys(candidates: Iterable[str], public_digests) -> list[str]:

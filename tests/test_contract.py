@@ -22,6 +22,7 @@ from corpuskit.ledger import LedgerRow, remove_segment
 from corpuskit.recipe import load_recipe
 from corpuskit.records import new_document
 from corpuskit.runner import Runner, check_partition
+from corpuskit.engines.local import Later
 from corpuskit.stages import ingest
 from corpuskit.stages.contract import Applied, Kind, Partition, Services, Stage
 from corpuskit.stages.registry import STAGES
@@ -40,6 +41,9 @@ class SerialEngine:
     def imap(self, func, args):
         for i, a in enumerate(args):
             yield i, func(*a)
+
+    def start(self, func, *args):
+        return Later(func, args)
 
 
 @contextlib.contextmanager

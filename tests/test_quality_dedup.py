@@ -3,7 +3,7 @@ import itertools
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import example, given, settings, strategies as st
 
 from corpuskit import minhash
 from corpuskit import lsh
@@ -12,7 +12,7 @@ from corpuskit.stages import split as split_stage
 from corpuskit.stages.dedup import clusters_from_pairs
 from corpuskit.minhash import batch_shingle_hashes, batch_signatures, permutations, shingle_hashes, signature
 from corpuskit.pii import scrub
-from corpuskit.stages.qualityfilter import Params as FParams, apply as filter_apply, segment_problem
+from corpuskit.stages.qualityfilter import Params as FParams, apply as filter_apply, segment_problem, segment_problems
 
 # -- each reason code on a constructed case ---------------------------------------------------
 
@@ -37,6 +37,51 @@ def test_each_filter_reason(reason, text):
 
 def test_clean_segment_passes_every_filter():
     assert segment_problem("Kamɛ ŋɔ́ sɛli tabu nɔ wɛ, ŋa mɔki.", FParams(), "", "Latn") is None
+
+
+def _problem_by_patterns(text, params, target):
+    """The filters written one segment at a time with the regex module's Unicode properties (the
+    reference the column-wise count in segment_problems must agree with)."""
+    import regex
+    bare = regex.sub(r"<(?:PHONE|EMAIL|URL|ID)>", "", text)
+    n = len(bare)
+    if not bare.strip():
+        return "no-text", "nothing left but placeholders or spaces"
+    if n < params.min_chars:
+        return "too-short", f"{n} characters < {params.min_chars}"
+    if n > params.max_chars:
+        return "too-long", f"{n} characters > {params.max_chars}"
+    m = regex.search(r"(.)\1{%d,}" % params.max_char_repeat, bare)
+    if m:
+        return "repeated-characters", f"'{m.group(1)}' repeated {len(m.group())} times"
+    for name, pattern, limit in (("digits", r"\p{Nd}", params.max_digit_share), ("punctuation", r"\p{P}", params.max_punct_share),
+                                 ("symbols", r"[\p{S}--\p{Extended_Pictographic}]", params.max_symbol_share),
+                                 ("urls", r"https?://\S+|www\.\S+", params.max_url_share),
+                                 ("emoji", r"[\p{Extended_Pictographic}\p{Emoji_Modifier}]", params.max_emoji_share)):
+        share = sum(map(len, regex.findall(pattern, bare, flags=regex.V1))) / n
+        if share > limit:
+            return f"too-many-{name}", f"{share:.2f} > {limit}"
+    letters = regex.findall(r"\p{L}", bare)
+    in_script = len(regex.findall(r"\p{scx=Latin}", "".join(letters)))
+    if letters and in_script / len(letters) < params.min_script_share:
+        return "wrong-script", f"{in_script / len(letters):.2f} of letters in {target} < {params.min_script_share}"
+    return None
+
+
+# Pieces that trip each filter, mixed with any Unicode text (lone surrogates included: the
+# column-wise count must read them as code points, as the patterns do).
+_FILTER_PIECES = st.sampled_from(["aaaaaaaa", "\n\n\n\n\n\n\n\n", "1234", "!?", "$+", "🙂👍🏽", "https://x.example/p",
+                                  "www.x.example", "<PHONE>", "<EMAIL> ", "ключ", "ŋɔ́ sɛ", "  ", "\u0301\u0301"])
+_FILTER_TEXTS = st.lists(st.one_of(_FILTER_PIECES, st.text(max_size=12)), max_size=6).map("".join)
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(_FILTER_TEXTS, min_size=1, max_size=8), st.integers(2, 8))
+@example(["kamɛ ŋɔ aaaa", "aaaa sɛli tabu", "", "aaaaa"], 6)   # a run across two segments is no run
+def test_column_wise_filters_agree_with_the_patterns_one_segment_at_a_time(texts, repeat):
+    # Reference: the regex module's Unicode property classes, one segment at a time.
+    params = FParams(max_char_repeat=repeat)
+    assert segment_problems(texts, params, "Latn") == [_problem_by_patterns(t, params, "Latn") for t in texts]
 
 
 def test_repeated_lines_drop_the_document_with_a_ledger_row():

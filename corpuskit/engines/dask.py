@@ -53,6 +53,10 @@ class DaskEngine:
         self.client.run(trim_memory)
         trim_memory()
 
+    def start(self, func: Callable, *args: Any):
+        """Begin ``func(*args)`` on the cluster; ``.result()`` waits for it."""
+        return self.client.submit(func, *args, pure=False)
+
     def imap(self, func: Callable, args: Sequence[tuple]) -> Iterator[tuple[int, Any]]:
         from distributed import as_completed
 

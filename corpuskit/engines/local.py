@@ -16,7 +16,7 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Callable, Iterator, Sequence
 
-__all__ = ["LocalEngine", "trim_memory"]
+__all__ = ["LocalEngine", "Later", "trim_memory"]
 
 PRELOAD = ["corpuskit.runner"]   # imported once by the server that forks the workers
 REST_ABOVE_MB = 128              # workers exit between steps when one holds more than this
@@ -38,6 +38,19 @@ def trim_memory() -> None:
         ctypes.CDLL("libc.so.6").malloc_trim(0)
     except (OSError, AttributeError):  # pragma: no cover - not glibc
         pass
+
+
+class Later:
+    """A task run when its result is first asked for (in this process)."""
+
+    def __init__(self, func: Callable, args: tuple):
+        self._func, self._args, self._done = func, args, False
+        self._value: Any = None
+
+    def result(self) -> Any:
+        if not self._done:
+            self._value, self._done = self._func(*self._args), True
+        return self._value
 
 
 class LocalEngine:
@@ -73,6 +86,13 @@ class LocalEngine:
             context.set_forkserver_preload(PRELOAD)
             self._pool = ProcessPoolExecutor(self.workers, mp_context=context)
         return self._pool
+
+    def start(self, func: Callable, *args: Any):
+        """Begin ``func(*args)`` on a worker while this process goes on; ``.result()`` waits for it.
+        With one worker it runs in this process when its result is asked for."""
+        if self.workers == 1:
+            return Later(func, args)
+        return self._executor().submit(func, *args)
 
     def imap(self, func: Callable, args: Sequence[tuple]) -> Iterator[tuple[int, Any]]:
         """Yield (index, result) as tasks finish; one worker or one task runs in this process."""

@@ -298,7 +298,20 @@ def _summary(acc: Accumulator, tables: dict, measures: dict, warnings: list[str]
     return f"<section id='summary'><h2>Summary</h2><ul>{''.join(items)}</ul>{box}<p class='links'>{links}</p></section>"
 
 
-def write_report(folder: Path, acc: Accumulator, params, recipe, run_warnings: list[str] = ()) -> dict:
+def plots(acc: Accumulator) -> list[tuple[str, str]]:
+    """The report's figures (title, PNG in base64); they depend on the counts alone."""
+    return _plots(acc, _overlap(acc.types["dialect"]))
+
+
+def _overlap(vocab: dict[str, set]) -> dict[str, dict[str, float]]:
+    """Jaccard overlap of each two dialects' vocabularies."""
+    names = sorted(vocab)
+    return {a: {b: round(jaccard(vocab[a], vocab[b]), 4) for b in names} for a in names}
+
+
+def write_report(folder: Path, acc: Accumulator, params, recipe, run_warnings: list[str] = (),
+                 figures: list[tuple[str, str]] | None = None) -> dict:
+    """The balance tables, measures and balance.html; ``figures`` from ``plots`` if made already."""
     folder.mkdir(parents=True, exist_ok=True)
     tables = {a: acc.table(a) for a in AXES}
     for a, rows in tables.items():
@@ -315,7 +328,7 @@ def write_report(folder: Path, acc: Accumulator, params, recipe, run_warnings: l
                       "tokens": acc.rows["dialect"][d]["words"], "types": len(acc.types["dialect"][d])})
     vocab = acc.types["dialect"]
     names = sorted(vocab)
-    overlap = {a: {b: round(jaccard(vocab[a], vocab[b]), 4) for b in names} for a in names}
+    overlap = _overlap(vocab)
     oov = []
     for a in names:
         rest = set().union(*(vocab[b] for b in names if b != a)) if len(names) > 1 else set()
@@ -344,7 +357,7 @@ def write_report(folder: Path, acc: Accumulator, params, recipe, run_warnings: l
     atomic_write_text(folder / "balance-overlap.csv", _csv([{"dialect": a, **overlap[a]} for a in names]))
     atomic_write_text(folder / "balance-oov.csv", _csv(oov))
     atomic_write_text(folder / "sampling-weights.csv", _csv(sampling))
-    plots = _plots(acc, overlap)
+    figures = _plots(acc, overlap) if figures is None else figures
     restricted = {src.id for src in recipe.sources if not src.redistributable}
     style = ("body{font-family:system-ui,sans-serif;max-width:1000px;margin:1.5em auto;padding:0 1em;color:#222;line-height:1.4}"
              "table{border-collapse:collapse;margin:.5em 0}td,th{border:1px solid #ccc;padding:3px 8px;text-align:right}"
@@ -366,7 +379,7 @@ def write_report(folder: Path, acc: Accumulator, params, recipe, run_warnings: l
     parts.append("<h2>Words of each dialect found in no other</h2>" + _html_table(oov))
     parts.append(f"<h2 id='sampling'>Temperature sampling across dialects (α = {params.alpha})</h2>" + _html_table(sampling))
     parts.append("<div id='plots'></div>")
-    for title, data in plots:
+    for title, data in figures:
         parts.append(f"<h2>{html.escape(title)}</h2><img alt='{html.escape(title)}' src='data:image/png;base64,{data}'>")
     parts.append("</body></html>\n")
     atomic_write_text(folder / "balance.html", "\n".join(parts))

@@ -110,6 +110,11 @@ class Services:
         """``task(*a)`` for each ``a`` on the workers, as (index, result) in completion order."""
         return self.engine.imap(task, args) if args else iter(())
 
+    def start(self, task: Callable, *args: Any):
+        """Begin ``task(*args)`` on a worker while this process goes on; ``.result()`` waits for
+        it (with one worker it runs in this process when its result is asked for)."""
+        return self.engine.start(task, *args)
+
     def rest(self, idle: bool = False) -> None:
         """Let the engine free memory before work in this process (``idle``: workers sleep)."""
         if hasattr(self.engine, "rest"):

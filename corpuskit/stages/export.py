@@ -17,7 +17,7 @@ from collections import Counter, defaultdict
 from dataclasses import dataclass, field
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
@@ -33,6 +33,7 @@ from .export_pieces import (EMPTY_GZIP, VERSION as PIECES_VERSION, LedgerSetting
 from . import langid
 from .contract import Services
 from .split import SPLITS
+from .. import audit
 from ..audit import PUBLIC_FILES, PUBLIC_PARTS, public_files
 
 __all__ = ["Params", "write_outputs", "destination", "variants_report", "transliteration_report"]
@@ -194,12 +195,20 @@ def write_outputs(services: Services, in_stage: str, parts, reports) -> ExportRe
     split_docs = {name: sum(s["files"].get(name, 0) for s in summaries) for name in SPLITS}
     _join_ledger(out / "private" / "ledger.jsonl.gz", cache, ledger_pieces, doc_pieces, summaries)
 
-    # Tokenizer on a sample of the public train split, report on the dev split.
+    # The leak audit of the corpus and split files (final from here on) on a worker, meanwhile.
+    people = _write_private(out, m.people, secret)
+    checker = _leak_checker(cache, doc_pieces, summaries, people, recipe)
+    record_files = [p for p in public_files(out) if p.relative_to(out).parts[0] in ("corpus", "splits")]
+    records_audit = services.start(audit.scan_files, checker, out, record_files)
+
+    # Tokenizer on a sample of the public train split (on a worker), report on the dev split.
     lines = _sample_lines(cache, doc_pieces, summaries, samples)
     dev = {g.split(":", 1)[1]: v for g, v in lines.items() if g.startswith("dev:")}
     train_by_dialect = {g.split(":", 1)[1]: v for g, v in lines.items() if g.startswith("train:")}
-    tok_info = _tokenizer(out, cache, params, recipe, lines.get("train", []), dev or train_by_dialect,
-                          "dev" if dev else "train")
+    finish_tokenizer = _tokenizer(services, params, lines.get("train", []), dev or train_by_dialect,
+                                  "dev" if dev else "train")
+    plots = balance.plots(stats)          # meanwhile, in this process
+    tok_info = finish_tokenizer()
     used = tok_info["summary"].get("vocab_used")
     if used and used != params.vocab_size:
         services.warn(f"tokenizer: vocabulary {used} instead of the requested {params.vocab_size} "
@@ -219,7 +228,7 @@ def write_outputs(services: Services, in_stage: str, parts, reports) -> ExportRe
     rep = out / "reports"
     services.warnings.extend(one_split_sources(by_source))
     services.warnings.extend(_orthography(rep, script_inventory, recipe))
-    bal = balance.write_report(rep, stats, params, recipe, services.warnings)
+    bal = balance.write_report(rep, stats, params, recipe, services.warnings, plots)
     services.warnings.extend(f"balance: {w}" for w in bal["warnings"])
     atomic_write_text(rep / "script-inventory.csv", script_inventory.csv())
     removal_rows = []
@@ -269,8 +278,7 @@ def write_outputs(services: Services, in_stage: str, parts, reports) -> ExportRe
         "sources": source_rows,
         "datasheet_unanswered": unanswered,
     }
-    people = _write_private(out, m.people, secret)
-    hits = _leak_audit(out, cache, doc_pieces, summaries, people, recipe)
+    hits = _leak_audit(out, checker, records_audit, record_files)
     if hits:
         from ..errors import DataError
         shown = "; ".join(h.describe() for h in hits[:5])
@@ -319,18 +327,24 @@ def _write_private(out: Path, people: dict[str, str], secret: bytes | None) -> d
     return people
 
 
-def _leak_audit(out: Path, cache, names: list[str], summaries: list[dict], people: dict[str, str], recipe) -> list:
-    """Scan every public file (see ``corpuskit.audit``); the hits, also in private/leak-audit.json."""
-    from .. import audit
+def _leak_checker(cache, names: list[str], summaries: list[dict], people: dict[str, str], recipe):
+    """The leak audit's checker (see ``corpuskit.audit``) for this run's pieces and names."""
     fparams = recipe.stages["filter"]
     restricted = [t for name in names for t in cache.get_json("export", f"{name}.json").get("restricted_texts", [])]
     public = [np.frombuffer(read_section(cache.blob_path("export", f"{name}.bin"), s["sections"]["public.digests"]),
                             dtype="<u8") for name, s in zip(names, summaries) if "public.digests" in s["sections"]]
     public_digests = np.unique(np.concatenate(public)) if public else np.zeros(0, np.uint64)
-    checker = audit.LeakAudit(audit.restricted_keys(restricted, public_digests),
-                              list(people), {s.id for s in recipe.sources if not s.redistributable}, public_digests,
-                              tuple(fparams.id_patterns), tuple(recipe.corpus.regions), fparams.pii != "keep")
-    hits = checker.scan(out)
+    return audit.LeakAudit(audit.restricted_keys(restricted, public_digests),
+                           list(people), {s.id for s in recipe.sources if not s.redistributable}, public_digests,
+                           tuple(fparams.id_patterns), tuple(recipe.corpus.regions), fparams.pii != "keep")
+
+
+def _leak_audit(out: Path, checker, records_audit, record_files: list[Path]) -> list:
+    """Every public file scanned: the corpus and split files by ``records_audit`` (begun on a
+    worker), the rest here; the hits in file order, also in private/leak-audit.json."""
+    hits = list(records_audit.result())
+    scanned = set(record_files)
+    hits += audit.scan_files(checker, out, [p for p in public_files(out) if p not in scanned])
     audit.write_report(out / "private" / "leak-audit.json", hits)
     return hits
 
@@ -381,7 +395,7 @@ def _make_pieces(services: Services, in_stage: str, parts, secret: bytes | None
             tick(0)
         for _ in services.map(ledger_piece_task, ledger_args):
             tick(0)
-    services.rest(idle=True)  # joining and the tokenizer run in this process
+    services.rest()  # the workers stay for the leak audit and the tokenizer, unless they grew large
     computed = len(doc_args) + len(ledger_args)
     return doc_names, ledger_pieces, computed, len(doc_names) + sum(len(n) for _, n in ledger_pieces) - computed
 
@@ -503,33 +517,50 @@ def _sample_lines(cache, names: list[str], summaries: list[dict], samples: Sampl
     return {g: [text for _, text in sorted(items)] for g, items in chosen.items()}
 
 
-def _tokenizer(out: Path, cache, params: Params, recipe, train_lines: list[str], eval_lines: dict[str, list[str]],
-               evaluated_on: str) -> dict:
+def tokenizer_task(train_lines: list[str], vocab_size: int, model_type: str, letters: str,
+                   eval_lines: dict[str, list[str]], language: str) -> tuple[bytes, int, list[dict]]:
+    """Train the tokenizer and report on the evaluation lines per dialect (runs on a worker)."""
+    model, used = tok.train_tokenizer(train_lines, vocab_size, model_type, letters)
+    return model, used, tok.dialect_report(model, eval_lines, language)
+
+
+def _tokenizer(services: Services, params: Params, train_lines: list[str], eval_lines: dict[str, list[str]],
+               evaluated_on: str) -> Callable[[], dict]:
+    """Begin the tokenizer: reused from the cache, or trained on a worker.  The function returned
+    waits for it, writes tokenizer/ and returns its summary and report rows."""
+    out, cache, recipe = services.out, services.cache, services.recipe
     if not train_lines:
-        atomic_write_text(out / "tokenizer" / "README.txt", "No public training text; no tokenizer was trained.\n")
-        return {"summary": {"trained": False}}
+        def nothing() -> dict:
+            atomic_write_text(out / "tokenizer" / "README.txt", "No public training text; no tokenizer was trained.\n")
+            return {"summary": {"trained": False}}
+        return nothing
     # The model and its report depend only on the sampled lines and the settings: reuse them.
     key = stable_hash("tokenizer", params.vocab_size, params.model_type, recipe.corpus.letters,
                       hashlib.sha256("\n".join(train_lines).encode("utf-8")).hexdigest(),
                       {d: hashlib.sha256("\n".join(v).encode("utf-8")).hexdigest() for d, v in sorted(eval_lines.items())})
-    if cache.has_blob("export", f"tokenizer-{key}.json"):
-        model = cache.blob_path("export", f"tokenizer-{key}.model").read_bytes()
-        used, rows = cache.get_json("export", f"tokenizer-{key}.json")
-    else:
-        model, used = tok.train_tokenizer(train_lines, params.vocab_size, params.model_type, recipe.corpus.letters)
-        rows = tok.dialect_report(model, eval_lines, recipe.corpus.language)
-        cache.put_blob("export", f"tokenizer-{key}.model", model)
-        # (not put_json: that sorts keys, and the rows' key order is the CSV's column order)
-        cache.put_blob("export", f"tokenizer-{key}.json", json.dumps([used, rows], ensure_ascii=False).encode("utf-8"))
-    (out / "tokenizer").mkdir(parents=True, exist_ok=True)
-    from ..storage import atomic_write_bytes
-    atomic_write_bytes(out / "tokenizer" / "tokenizer.model", model)
-    atomic_write_text(out / "tokenizer" / "dialects.csv", csv_text(rows))
-    summary = {"trained": True, "model_type": params.model_type, "vocab_requested": params.vocab_size,
-               "vocab_used": used, "character_coverage": 1.0, "normalization": "identity",
-               "train_lines": len(train_lines), "evaluated_on": evaluated_on}
-    atomic_write_text(out / "tokenizer" / "summary.json", json.dumps(summary, indent=2, sort_keys=True) + "\n")
-    return {"summary": summary, "dialects": rows}
+    cached = cache.has_blob("export", f"tokenizer-{key}.json")
+    job = None if cached else services.start(tokenizer_task, train_lines, params.vocab_size, params.model_type,
+                                             recipe.corpus.letters, eval_lines, recipe.corpus.language)
+
+    def finish() -> dict:
+        if cached:
+            model = cache.blob_path("export", f"tokenizer-{key}.model").read_bytes()
+            used, rows = cache.get_json("export", f"tokenizer-{key}.json")
+        else:
+            model, used, rows = job.result()
+            cache.put_blob("export", f"tokenizer-{key}.model", model)
+            # (not put_json: that sorts keys, and the rows' key order is the CSV's column order)
+            cache.put_blob("export", f"tokenizer-{key}.json", json.dumps([used, rows], ensure_ascii=False).encode("utf-8"))
+        (out / "tokenizer").mkdir(parents=True, exist_ok=True)
+        from ..storage import atomic_write_bytes
+        atomic_write_bytes(out / "tokenizer" / "tokenizer.model", model)
+        atomic_write_text(out / "tokenizer" / "dialects.csv", csv_text(rows))
+        summary = {"trained": True, "model_type": params.model_type, "vocab_requested": params.vocab_size,
+                   "vocab_used": used, "character_coverage": 1.0, "normalization": "identity",
+                   "train_lines": len(train_lines), "evaluated_on": evaluated_on}
+        atomic_write_text(out / "tokenizer" / "summary.json", json.dumps(summary, indent=2, sort_keys=True) + "\n")
+        return {"summary": summary, "dialects": rows}
+    return finish
 
 
 def _stage_reports(services: Services, rep: Path, private: Path, review, ledger_summary) -> dict:

@@ -47,6 +47,7 @@ from .units import keep_segments
 VERSION = "4"
 UND = "und"
 LETTER = regex.compile(r"\p{L}")
+_NOT_LETTERS = regex.compile(r"\P{L}+")
 URL = regex.compile(r"https?://\S+|www\.\S+|\S+@\S+\.\w+")
 
 
@@ -476,13 +477,14 @@ def label_documents(docs: list[dict], ctx: dict, params: Params, model) -> list[
     s, best = target_scores(model, lines, ctx["language"])
     k, language, threshold = 0, ctx["language"], ctx["threshold"]
     out = []
-    decided_all = []
+    decided_all, letters_all = [], []
     for doc, (labels, scores, ask) in zip(docs, plans):
         own = s[k:k + len(ask)]
         letters = [letter_count(doc["segments"][i]) for i in ask]
         decided_all.append(with_context(own, letters, params.context_letters) if params.context else own)
+        letters_all.append(letters)
         k += len(ask)
-    switched = _code_switched(docs, plans, decided_all, model, ctx, params)
+    switched = _code_switched(docs, plans, decided_all, letters_all, model, ctx, params)
     k = 0
     for d, (doc, (labels, scores, ask)) in enumerate(zip(docs, plans)):
         decided = decided_all[d]
@@ -495,7 +497,7 @@ def label_documents(docs: list[dict], ctx: dict, params: Params, model) -> list[
     return out
 
 
-def _code_switched(docs, plans, decided, model, ctx: dict, params: Params) -> dict[tuple[int, int], float]:
+def _code_switched(docs, plans, decided, letters, model, ctx: dict, params: Params) -> dict[tuple[int, int], float]:
     """Segments that switch language part-way: a long segment below the threshold is scored again
     as its two halves (by words); the better half's score, where it reaches the threshold, stands
     for the segment, which holds that much target-language text."""
@@ -503,7 +505,7 @@ def _code_switched(docs, plans, decided, model, ctx: dict, params: Params) -> di
     for d, (doc, (_, _, ask)) in enumerate(zip(docs, plans)):
         for j, i in enumerate(ask):
             text = doc["segments"][i]
-            if decided[d][j] < ctx["threshold"] and letter_count(text) >= params.context_letters:
+            if decided[d][j] < ctx["threshold"] and letters[d][j] >= params.context_letters:
                 words = text.split()
                 if len(words) >= 4:
                     halves += [" ".join(words[:len(words) // 2]), " ".join(words[len(words) // 2:])]
@@ -520,7 +522,8 @@ def _code_switched(docs, plans, decided, model, ctx: dict, params: Params) -> di
 
 
 def letter_count(text: str) -> int:
-    return len(LETTER.findall(text))
+    """How many letters (Unicode general category L) the text holds."""
+    return len(_NOT_LETTERS.sub("", text))   # about 3x faster than counting LETTER's matches
 
 
 MAX_EVIDENCE = 8.0   # log-odds a document's other segments can add to one segment, at most

@@ -11,6 +11,7 @@ from collections import Counter
 from dataclasses import dataclass
 from functools import lru_cache
 
+import numpy as np
 import regex
 
 from ..casing import comparison_key
@@ -22,7 +23,7 @@ from ..storage import stable_hash
 from .contract import Applied
 from .units import drop_empty, keep_segments
 
-VERSION = "5"
+VERSION = "5"   # the column-wise count decides as the per-segment patterns did: results unchanged
 
 
 @dataclass(frozen=True)
@@ -58,69 +59,153 @@ def _repeat(n: int):
     return regex.compile(r"(.)\1{%d,}" % n)
 
 
-def segment_problem(text: str, params: Params, script: str, target: str) -> tuple[str, str] | None:
-    """The first filter a segment fails, as (reason, detail), or None."""
-    bare = PLACEHOLDER.sub("", text)
-    n = len(bare)
-    if not bare.strip():
-        return "no-text", "nothing left but placeholders or spaces"
-    if n < params.min_chars:
-        return "too-short", f"{n} characters < {params.min_chars}"
-    if n > params.max_chars:
-        return "too-long", f"{n} characters > {params.max_chars}"
-    m = _repeat(params.max_char_repeat).search(bare)
-    if m:
-        return "repeated-characters", f"'{m.group(1)}' repeated {len(m.group())} times"
-    url_chars = sum(len(u) for u in URL.findall(bare))
-    shares = [
-        ("digits", len(DIGIT.findall(bare)) / n, params.max_digit_share),
-        ("punctuation", len(PUNCTUATION.findall(bare)) / n, params.max_punct_share),
-        ("symbols", len(SYMBOL.findall(bare)) / n, params.max_symbol_share),
-        ("urls", url_chars / n, params.max_url_share),
-        ("emoji", len(EMOJI.findall(bare)) / n, params.max_emoji_share),
-    ]
-    for name, share, limit in shares:
-        if share > limit:
-            return f"too-many-{name}", f"{share:.2f} > {limit}"
-    letters = LETTER.findall(bare)
-    if letters:
-        in_script = len(_in_script(target).findall("".join(letters)))
-        if in_script / len(letters) < params.min_script_share:
-            return "wrong-script", f"{in_script / len(letters):.2f} of letters in {target} < {params.min_script_share}"
+# Bits of a code point's class: what the share filters count.  Each distinct code point is
+# classified once per process with the patterns above (so the regex module's Unicode data decides,
+# as it would character by character), and whole partitions are then counted with numpy.
+_CLASSES = (DIGIT, PUNCTUATION, SYMBOL, EMOJI, LETTER)
+_DIGIT_BIT, _PUNCT_BIT, _SYMBOL_BIT, _EMOJI_BIT, _LETTER_BIT, _IN_SCRIPT_BIT = (1 << i for i in range(6))
+_UNKNOWN = 255
+_TABLES: dict[str, np.ndarray] = {}   # target script -> class bits of every code point (255: not seen yet)
+
+
+def _class_bits(code_points: np.ndarray, target: str) -> np.ndarray:
+    """The class bits of each code point, for letters also whether they are in the target script."""
+    table = _TABLES.get(target)
+    if table is None:
+        table = _TABLES[target] = np.full(0x110000, _UNKNOWN, dtype=np.uint8)
+    new = np.unique(code_points[table[code_points] == _UNKNOWN])
+    if len(new):
+        in_script = _in_script(target)
+        bits = []
+        for c in new.tolist():
+            ch = chr(c)
+            b = sum(1 << i for i, pattern in enumerate(_CLASSES) if pattern.match(ch))
+            if b & _LETTER_BIT and in_script.match(ch):
+                b |= _IN_SCRIPT_BIT
+            bits.append(b)
+        table[new] = bits
+    return table[code_points]
+
+
+def _code_points(texts: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    """All texts' code points, end to end, and where each text starts (one more: the end)."""
+    starts = np.zeros(len(texts) + 1, dtype=np.int64)
+    np.cumsum([len(t) for t in texts], out=starts[1:])
+    joined = "".join(texts).encode("utf-32-le", "surrogatepass")
+    return np.frombuffer(joined, dtype="<u4"), starts
+
+
+def _counts(flags: np.ndarray, starts: np.ndarray) -> list[int]:
+    """How many of each text's positions are set."""
+    total = np.zeros(len(flags) + 1, dtype=np.int64)
+    np.cumsum(flags, out=total[1:])
+    return (total[starts[1:]] - total[starts[:-1]]).tolist()
+
+
+def _has_repeat(code_points: np.ndarray, starts: np.ndarray, repeat: int) -> list[bool]:
+    """Whether a text holds one character (not a line feed: '.' does not match it) more than
+    ``repeat`` times in a row, as ``_repeat(repeat)`` would find."""
+    same = (code_points[1:] == code_points[:-1]) & (code_points[1:] != 10)
+    inner = np.ones(len(same), dtype=bool)
+    inner[starts[1:-1][(starts[1:-1] > 0) & (starts[1:-1] <= len(same))] - 1] = False   # pairs across two texts
+    same &= inner
+    if len(same) < repeat:
+        return [False] * (len(starts) - 1)
+    window = np.convolve(same.astype(np.int32), np.ones(repeat, dtype=np.int32), "valid")
+    at = np.flatnonzero(window >= repeat)
+    hit = np.zeros(len(starts) - 1, dtype=bool)
+    hit[np.searchsorted(starts, at, side="right") - 1] = True
+    return hit.tolist()
+
+
+def segment_problems(texts: list[str], params: Params, target: str) -> list[tuple[str, str] | None]:
+    """The first filter each segment fails, as (reason, detail), or None; counted column-wise
+    over all the texts at once."""
+    bares = [PLACEHOLDER.sub("", t) if "<" in t else t for t in texts]
+    code_points, starts = _code_points(bares)
+    bits = _class_bits(code_points, target)
+    digits, punctuation, symbols, emoji, letters, in_script = (
+        _counts((bits & bit) != 0, starts) for bit in (_DIGIT_BIT, _PUNCT_BIT, _SYMBOL_BIT, _EMOJI_BIT, _LETTER_BIT, _IN_SCRIPT_BIT))
+    repeats = _has_repeat(code_points, starts, params.max_char_repeat)
+    out: list[tuple[str, str] | None] = []
+    for k, bare in enumerate(bares):
+        n = len(bare)
+        if not bare.strip():
+            out.append(("no-text", "nothing left but placeholders or spaces"))
+        elif n < params.min_chars:
+            out.append(("too-short", f"{n} characters < {params.min_chars}"))
+        elif n > params.max_chars:
+            out.append(("too-long", f"{n} characters > {params.max_chars}"))
+        elif repeats[k]:
+            m = _repeat(params.max_char_repeat).search(bare)
+            out.append(("repeated-characters", f"'{m.group(1)}' repeated {len(m.group())} times"))
+        else:
+            url_chars = sum(len(u) for u in URL.findall(bare)) if "://" in bare or "www." in bare else 0
+            out.append(_share_problem(n, ((digits[k], params.max_digit_share, "digits"),
+                                          (punctuation[k], params.max_punct_share, "punctuation"),
+                                          (symbols[k], params.max_symbol_share, "symbols"),
+                                          (url_chars, params.max_url_share, "urls"),
+                                          (emoji[k], params.max_emoji_share, "emoji")),
+                                      letters[k], in_script[k], params, target))
+    return out
+
+
+def _share_problem(n: int, shares, letters: int, in_script: int, params: Params, target: str) -> tuple[str, str] | None:
+    for count, limit, name in shares:
+        if count / n > limit:
+            return f"too-many-{name}", f"{count / n:.2f} > {limit}"
+    if letters and in_script / letters < params.min_script_share:
+        return "wrong-script", f"{in_script / letters:.2f} of letters in {target} < {params.min_script_share}"
     return None
+
+
+def segment_problem(text: str, params: Params, script: str, target: str) -> tuple[str, str] | None:
+    """The first filter one segment fails, as (reason, detail), or None."""
+    return segment_problems([text], params, target)[0]
 
 
 def apply(docs: list[dict], params: Params, ctx: dict | None):
     ctx = ctx or {"target_script": "Latn", "regions": ()}
     target_script, regions = ctx["target_script"], tuple(ctx["regions"])
-    rows: list[LedgerRow] = []
-    out = []
+    # Per document in order: its rows so far, and the document when its segments are to be checked
+    # (all of them are then checked at once); the rows keep the documents' order.
+    planned: list[tuple[list[LedgerRow], dict | None]] = []
     for doc in docs:
         found: Counter = Counter()
+        own: list[LedgerRow] = []
         if params.pii != "keep":
             for i, seg in enumerate(doc["segments"]):
                 new, counts = scrub(seg, params.id_patterns, regions)
                 if counts:
                     found += counts
                     doc["segments"][i] = new
-                    rows.append(LedgerRow("filter", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
-                                          "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(counts.items())), None, None))
+                    own.append(LedgerRow("filter", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
+                                         "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(counts.items())), None, None))
             if doc.get("original"):
                 doc["original"] = [scrub(s, params.id_patterns, regions)[0] for s in doc["original"]]
             if found and params.pii == "drop-document":
-                rows.append(remove_document("filter", doc, "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(found.items()))))
+                own.append(remove_document("filter", doc, "personal-data", ", ".join(f"{k}={v}" for k, v in sorted(found.items()))))
+                planned.append((own, None))
                 continue
         keys = Counter(comparison_key(s) for s in doc["segments"])
         repeated = sum(v - 1 for v in keys.values())
         if len(doc["segments"]) > 2 and repeated / len(doc["segments"]) > params.max_repeated_lines:
-            rows.append(remove_document("filter", doc, "repeated-lines", f"{repeated} of {len(doc['segments'])} segments repeat"))
+            own.append(remove_document("filter", doc, "repeated-lines", f"{repeated} of {len(doc['segments'])} segments repeat"))
+            planned.append((own, None))
             continue
-        problems = [segment_problem(s, params, "", target_script) for s in doc["segments"]]
-        keep_segments("filter", doc, [p is None for p in problems], [p[0] if p else None for p in problems],
-                      [p[1] if p else "" for p in problems], rows)
+        planned.append((own, doc))
+    problems = iter(segment_problems([s for _, doc in planned if doc is not None for s in doc["segments"]], params, target_script))
+    rows: list[LedgerRow] = []
+    out = []
+    for own, doc in planned:
+        rows += own
+        if doc is None:
+            continue
+        mine = [next(problems) for _ in doc["segments"]]
+        keep_segments("filter", doc, [p is None for p in mine], [p[0] if p else None for p in mine],
+                      [p[1] if p else "" for p in mine], rows)
         out.append(doc)
     return Applied(drop_empty("filter", out, rows), rows)
-
 
 
 def context_key(recipe, params) -> str:
