@@ -304,3 +304,29 @@ def test_boilerplate_segments_match_a_direct_count(tmp_path):
             expected["abc"[0 if i < 30 else 1 if i < 55 else 2]] |= set(hashes) & boiler
     got = dedup.boilerplate_segments(data, survivors, params)
     assert boiler and got == {k: sorted(v) for k, v in expected.items()}
+
+
+def test_split_signatures_taken_from_dedup_equal_signatures_computed_afresh(tmp_path):
+    """A document dedup kept whole keeps its signature row; one that lost a segment, or is new,
+    is computed again: either way the files equal a computation from scratch."""
+    from corpuskit.stages import dedup
+    from corpuskit.storage import Cache
+    cache = Cache(tmp_path)
+    rng = np.random.default_rng(4)
+    words = ["kamɛ", "ŋɔ", "sɛli", "tabu", "mɔki", "bɛ", "wɛ", "nɔ"]
+    docs = [{"id": f"s:{i}", "source": "s", "seg_index": list(range(3)),
+             "segments": [" ".join(rng.choice(words, 6)) for _ in range(3)]} for i in range(40)]
+    cache.write_partition("filter", "in", docs, [], {})
+    params = dedup.Params(num_perm=32)
+    dedup.signatures_task(str(cache.root), "filter", "in", params, "sig-in", "dedup")
+    after = [dict(d) for d in docs[:30] if int(d["id"][2:]) % 7]                  # some documents removed
+    after[3] = {**after[3], "segments": after[3]["segments"][1:], "seg_index": [1, 2]}   # a segment dropped
+    after.append({**docs[0], "id": "s:new"})                                          # and one not seen by dedup
+    cache.write_partition("dedup", "out", after, [], {})
+    dedup.signatures_task(str(cache.root), "dedup", "out", params, "sig-reused", "split", ("dedup", "sig-in"))
+    dedup.signatures_task(str(cache.root), "dedup", "out", params, "sig-fresh", "split")
+    assert np.array_equal(np.load(cache.blob_path("split", "sig-reused.npy")), np.load(cache.blob_path("split", "sig-fresh.npy")))
+    with np.load(cache.blob_path("split", "sig-reused.npz")) as a, np.load(cache.blob_path("split", "sig-fresh.npz")) as b:
+        assert sorted(a.files) == sorted(b.files) and all(np.array_equal(a[k], b[k]) for k in a.files)
+    rows = dedup._earlier_rows(cache, ("dedup", "sig-in"), after)
+    assert (rows >= 0).sum() == len(after) - 2 and rows[3] == -1 and rows[-1] == -1

@@ -123,9 +123,13 @@ def keep_order_removals(n: int, pairs: "NearPairs", order: np.ndarray) -> tuple[
     return twin, sim
 
 
-def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params, out_name: str, stage: str) -> str:
+def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params, out_name: str, stage: str,
+                    earlier: tuple[str, str] | None = None) -> str:
     """One partition's signatures (``<name>.npy``, memory-mappable) and its per-document facts
-    (``<name>.npz``: ids, shingle counts, lengths, exact-text and segment hashes)."""
+    (``<name>.npz``: ids, shingle counts, lengths, exact-text and segment hashes).  ``earlier``
+    (stage, name) names signatures of an earlier stage over the same documents: a document found
+    there with as many segments (stages in between only drop whole segments) has the same text,
+    and its signature is taken from there instead of computed again."""
     cache = Cache(Path(cache_root).parent)
     facts_path = cache.blob_path(stage, f"{out_name}.npz")
     if facts_path.exists():
@@ -133,15 +137,29 @@ def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params,
     docs = cache.read_docs(in_stage, in_key)
     a, b = permutations(params.num_perm)
     texts = [" ".join(doc["segments"]) for doc in docs]
-    hash_sets = shingles_of_texts(texts, params.ngram, params.shingle)
     seg_hashes = [segment_hash(s) for doc in docs for s in doc["segments"]]
     seg_offsets = np.cumsum([0] + [len(doc["segments"]) for doc in docs])
-    sigs = batch_signatures(hash_sets, a, b) if docs else np.zeros((0, params.num_perm), np.uint32)
+    found = _earlier_rows(cache, earlier, docs)
+    fresh = [i for i, row in enumerate(found) if row < 0]
+    hash_sets: list = [None] * len(docs)
+    for i, h in zip(fresh, shingles_of_texts([texts[i] for i in fresh], params.ngram, params.shingle)):
+        hash_sets[i] = h
+    sigs = np.zeros((len(docs), params.num_perm), np.uint32)
+    if fresh:
+        sigs[fresh] = batch_signatures([hash_sets[i] for i in fresh], a, b)
+    n_shingles = np.zeros(len(docs), np.int64)
+    n_shingles[fresh] = [len(hash_sets[i]) for i in fresh]
+    if len(fresh) < len(docs):
+        reused = np.flatnonzero(found >= 0)
+        earlier_sigs = np.load(cache.blob_path(earlier[0], f"{earlier[1]}.npy"), mmap_mode="r")
+        sigs[reused] = earlier_sigs[found[reused]]
+        with np.load(cache.blob_path(earlier[0], f"{earlier[1]}.npz")) as z:
+            n_shingles[reused] = z["n_shingles"][found[reused]]
     buf = io.BytesIO()
     np.save(buf, sigs)
     atomic_write_bytes(cache.blob_path(stage, f"{out_name}.npy"), buf.getvalue())
     if stage == "dedup":   # each document's n-gram hashes, for exact verification (made distinct when read)
-        sets = hash_sets
+        sets = hash_sets   # (dedup is given no ``earlier``: every set is computed)
         buf = io.BytesIO()
         np.save(buf, np.concatenate(sets + [np.zeros(0, np.uint32)]).astype(np.uint32))
         atomic_write_bytes(cache.blob_path(stage, f"{out_name}.shingles.npy"), buf.getvalue())
@@ -149,7 +167,7 @@ def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params,
     else:
         shingle_offsets = np.zeros(len(docs) + 1, np.int64)
     buf = io.BytesIO()
-    np.savez(buf, ids=np.array([d["id"] for d in docs], dtype=str), n_shingles=np.array([len(h) for h in hash_sets], np.int64),
+    np.savez(buf, ids=np.array([d["id"] for d in docs], dtype=str), n_shingles=n_shingles,
              exact=np.array([text_hash(t) for t in texts], dtype=np.uint64),
              lengths=np.array([sum(map(len, d["segments"])) for d in docs], dtype=np.int64),
              sources=np.array([d["source"] for d in docs], dtype=str),
@@ -157,6 +175,22 @@ def signatures_task(cache_root: str, in_stage: str, in_key: str, params: Params,
              shingle_offsets=shingle_offsets)
     atomic_write_bytes(facts_path, buf.getvalue())  # written last: its presence means both are complete
     return out_name
+
+
+def _earlier_rows(cache: Cache, earlier: tuple[str, str] | None, docs: list[dict]) -> np.ndarray:
+    """Per document, its row in the earlier signatures when its text is unchanged there, else -1."""
+    rows = np.full(len(docs), -1, dtype=np.int64)
+    if earlier is None or not cache.has_blob(earlier[0], f"{earlier[1]}.npz") \
+            or not cache.has_blob(earlier[0], f"{earlier[1]}.npy"):
+        return rows
+    with np.load(cache.blob_path(earlier[0], f"{earlier[1]}.npz")) as z:
+        index = {doc_id: row for row, doc_id in enumerate(z["ids"].tolist())}
+        segments = np.diff(z["seg_offsets"]).tolist()
+    for i, doc in enumerate(docs):
+        row = index.get(doc["id"], -1)
+        if row >= 0 and segments[row] == len(doc["segments"]):
+            rows[i] = row
+    return rows
 
 
 def text_hash(text: str) -> int:
@@ -300,13 +334,21 @@ def _codes(values: np.ndarray, names: list[str]) -> np.ndarray:
     return np.array([index[u] for u in uniq.tolist()], dtype=np.int32)[inverse] if len(values) else np.zeros(0, np.int32)
 
 
-def load_signatures(services, stage: str, in_stage: str, parts, params: Params) -> SignatureSet:
-    """Compute (or reuse) every partition's signatures; the set of them in partition order."""
+def signature_name(in_key: str, params: Params) -> str:
+    """The cache name of one input partition's signatures."""
     from ..codeversion import code_version
-    version = f"{VERSION}:{code_version(__name__)}"
-    names = {p.key: f"sig-{stable_hash(version, p.key, params.num_perm, params.ngram, params.shingle)}" for p in parts}
+    return f"sig-{stable_hash(f'{VERSION}:{code_version(__name__)}', in_key, params.num_perm, params.ngram, params.shingle)}"
+
+
+def load_signatures(services, stage: str, in_stage: str, parts, params: Params,
+                    earlier: dict[str, tuple[str, str]] | None = None) -> SignatureSet:
+    """Compute (or reuse) every partition's signatures; the set of them in partition order.
+    ``earlier`` maps a partition key to (stage, name) of signatures over the same documents that
+    an earlier stage made (see ``signatures_task``)."""
+    names = {p.key: signature_name(p.key, params) for p in parts}
     todo = [p for p in parts if not services.cache.has_blob(stage, f"{names[p.key]}.npz")]
-    args = [(str(services.cache.root), in_stage, p.key, params, names[p.key], stage) for p in todo]
+    args = [(str(services.cache.root), in_stage, p.key, params, names[p.key], stage, (earlier or {}).get(p.key))
+            for p in todo]
     with services.progress(f"{stage}:signatures", len(args)) as tick:
         for _ in services.map(signatures_task, args):
             tick(0)

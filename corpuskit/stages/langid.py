@@ -222,17 +222,16 @@ def _ensemble_scores(models: list, lines: list[str], language: str) -> tuple[np.
     # greetings, forwarded messages); the sums are taken in the same order as line by line.
     index: dict[str, int] = {}
     rows = [index.setdefault(prepare_line(x) + "\n", len(index)) for x in lines]
-    votes: list[dict[str, float]] = [{} for _ in index]
+    votes: list[dict[str, float]] = [{} for _ in index]    # fastText's labels ("__label__qnv") as they come
     for m in models:
         n = _label_count(m)
         predict = m.f.predict
         for v, x in zip(votes, index):
             for p, lab in predict(x, n, 0.0, "strict"):
-                label = lab[9:]
-                v[label] = v.get(label, 0) + p
-    target = {lab: is_target(lab, language) for lab in {lab for v in votes for lab in v}}
+                v[lab] = v.get(lab, 0) + p
+    target = {lab: is_target(lab[9:], language) for lab in {lab for v in votes for lab in v}}
     total = np.array([sum(p for lab, p in v.items() if target[lab]) for v in votes], dtype=float)
-    best = [max(sorted(v), key=v.get) if v else UND for v in votes]
+    best = [max(sorted(v), key=v.get)[9:] if v else UND for v in votes]
     scores = np.minimum(total / len(models), 1.0)
     return scores[rows] if rows else np.zeros(0), [best[r] for r in rows]
 

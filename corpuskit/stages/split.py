@@ -64,7 +64,7 @@ def assign(clusters: list[list[int]], names: list[str], ratios: dict, seed: int)
 
 def decide(services: Services, in_stage: str, parts, params: Params) -> Decisions:
     dparams = services.recipe.stages["dedup"]
-    data = dedup.load_signatures(services, "split", in_stage, parts, dparams)
+    data = dedup.load_signatures(services, "split", in_stage, parts, dparams, _dedup_signatures(services, in_stage, dparams))
     pairs, _ = dedup.near_duplicate_pairs(data, params.leak_threshold,
                                           dparams.__class__(**{**dparams.__dict__, "min_shingles": 1}),
                                           services.engine)
@@ -83,6 +83,19 @@ def decide(services: Services, in_stage: str, parts, params: Params) -> Decision
         decisions[parts[p].key][name_of[row]] = cluster_name[row]
     return Decisions(decisions, {"leak_threshold": params.leak_threshold, "leak_clusters": len(clustered),
                                  "docs_in_leak_clusters": len(members)})
+
+
+def _dedup_signatures(services: Services, in_stage: str, dparams) -> dict[str, tuple[str, str]]:
+    """Per input partition (dedup's output), the signatures dedup made of its input partition: the
+    same documents, and the same texts unless dedup dropped boilerplate segments of one."""
+    stages = list(services.last_keys)
+    if in_stage != "dedup" or "dedup" not in stages or stages.index("dedup") == 0:
+        return {}
+    before = services.last_keys[stages[stages.index("dedup") - 1]]
+    after = services.last_keys["dedup"]
+    if len(before) != len(after):
+        return {}
+    return {out_key: ("dedup", dedup.signature_name(in_key, dparams)) for in_key, out_key in zip(before, after)}
 
 
 def apply(docs: list[dict], params: Params, decision: dict):
