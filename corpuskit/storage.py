@@ -135,6 +135,12 @@ def _parquet_bytes(table: pa.Table) -> bytes:
     return sink.getvalue()
 
 
+def table_of(records: list[dict], schema: pa.Schema) -> pa.Table:
+    """Records as a table of ``schema``, built column by column (as ``Table.from_pylist`` would:
+    a missing field is null, a field not in the schema is left out; about twice as fast)."""
+    return pa.Table.from_pydict({name: [r.get(name) for r in records] for name in schema.names}, schema=schema)
+
+
 def read_parquet(path: Path, schema: pa.Schema) -> pa.Table:
     """One Parquet file as a table of ``schema``.  Read as a single file, not through pyarrow's
     dataset layer (which imports pandas: 0.6 s and tens of MB in every fresh worker)."""
@@ -184,8 +190,9 @@ class Cache:
                         marker: dict[str, Any]) -> None:
         self.use(stage, key)
         d = self._dir(stage)
-        atomic_write_bytes(d / f"{key}.parquet", _parquet_bytes(pa.Table.from_pylist(docs, schema=SCHEMA)))
-        ledger = pa.Table.from_pylist([r.as_dict() for r in rows], schema=LEDGER_SCHEMA)
+        atomic_write_bytes(d / f"{key}.parquet", _parquet_bytes(table_of(docs, SCHEMA)))
+        ledger = pa.Table.from_pydict({name: [getattr(r, name) for r in rows] for name in LEDGER_SCHEMA.names},
+                                      schema=LEDGER_SCHEMA)
         atomic_write_bytes(d / f"{key}.ledger.parquet", _parquet_bytes(ledger))
         atomic_write_text(d / f"{key}.json", json.dumps({"format": FORMAT_VERSION, **marker}, sort_keys=True))
 

@@ -166,3 +166,33 @@ def test_ascii_text_is_never_mojibake_for_ftfy(text):
     from ftfy.badness import is_bad
     from corpuskit.stages.normalise import mojibake
     assert not is_bad(text) and mojibake(text) == (text, "")
+
+
+def _characters_without_mojibake_marks() -> list[str]:
+    from corpuskit.stages.normalise import mojibake_marks
+    marks = mojibake_marks()
+    # Where mojibake lives: Latin-1 and Latin Extended, Greek, Cyrillic, Arabic, general
+    # punctuation, currency, letterlike and box-drawing blocks, and ASCII (ftfy's categories).
+    return [chr(c) for c in range(0x2600) if not 0xD800 <= c <= 0xDFFF and chr(c) not in marks]
+
+
+_NO_MARKS = _characters_without_mojibake_marks()
+
+
+@settings(max_examples=3000, deadline=None)
+@given(st.text(alphabet=st.sampled_from(_NO_MARKS), max_size=30))
+def test_text_without_a_mojibake_mark_is_never_bad_for_ftfy(text):
+    # normalise skips ftfy's badness test on text holding none of the characters each of its
+    # patterns needs (worked out from ftfy.badness.BADNESS_RE); ftfy's own test is the reference.
+    from ftfy.badness import is_bad
+    from corpuskit.stages.normalise import mojibake
+    assert not is_bad(text) and mojibake(text) == (text, "")
+
+
+def test_mojibake_marks_are_the_characters_mojibake_is_made_of():
+    # UTF-8 read as Windows-1252 or Latin-1 yields Ã, Â, â, C1 controls (from memory: the usual
+    # signs, and what ftfy's pattern lists); letters of the demo orthography are not among them.
+    from corpuskit.stages.normalise import mojibake, mojibake_marks
+    marks = mojibake_marks()
+    assert marks is not None and {"Ã", "Â", "\x80", "\x9f"} <= marks and not {"ɛ", "ɔ", "ŋ", "a"} & marks
+    assert mojibake("bÃ©lÃ© kamÃ©")[0] == "bélé kamé"

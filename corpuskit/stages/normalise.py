@@ -18,6 +18,7 @@ from __future__ import annotations
 import unicodedata
 from collections import Counter
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import regex
 
@@ -101,14 +102,71 @@ def _safe_ftfy_config():
                                 remove_control_chars=False, fix_surrogates=True, explain=True)
 
 
+@lru_cache(maxsize=1)
+def mojibake_marks() -> frozenset[str] | None:
+    """Characters without one of which ftfy's badness test cannot match.
+
+    Each alternative of ftfy's pattern (``ftfy.badness.BADNESS_RE``) must match a non-ASCII
+    character given as a literal or in a class of such characters ("[ÂÃÎÐ]", the C1 controls,
+    "[{upper_accented}]" ...); for each alternative the smallest such element is taken, and a text
+    holding none of their characters is not bad.  Worked out from the pattern itself when first
+    needed; None (test every non-ASCII text) if an alternative has no such element, as a later
+    ftfy might."""
+    import re
+    from ftfy.badness import BADNESS_RE
+    try:
+        from re import _constants as sre, _parser as sre_parse
+    except ImportError:  # pragma: no cover - Python before 3.11
+        import sre_constants as sre
+        import sre_parse
+    if BADNESS_RE.flags & re.IGNORECASE:
+        return None
+    items = list(sre_parse.parse(BADNESS_RE.pattern, BADNESS_RE.flags))
+    branches = items[0][1][1] if len(items) == 1 and items[0][0] is sre.BRANCH else [items]
+    marks: set[int] = set()
+    for branch in branches:
+        required = [chars for chars in map(_non_ascii_element, branch) if chars]
+        if not required:
+            return None
+        marks.update(min(required, key=len))
+    return frozenset(map(chr, marks))
+
+
+def _non_ascii_element(item) -> set[int]:
+    """The code points one pattern element matches, if it matches one character and only non-ASCII
+    ones (a literal, or a class of literals and ranges); else the empty set."""
+    try:
+        from re import _constants as sre
+    except ImportError:  # pragma: no cover
+        import sre_constants as sre
+    op, arg = item
+    if op is sre.LITERAL:
+        chars = {arg}
+    elif op is sre.IN and all(o in (sre.LITERAL, sre.RANGE) for o, _ in arg):
+        chars = set()
+        for o, a in arg:
+            chars.update([a] if o is sre.LITERAL else range(a[0], a[1] + 1))
+    else:
+        return set()
+    return chars if chars and min(chars) > 0x7F else set()
+
+
+def _may_be_mojibake(text: str) -> bool:
+    """Whether ftfy's badness test could find anything: the text holds one of ``mojibake_marks``."""
+    if text.isascii():
+        return False
+    marks = mojibake_marks()
+    return marks is None or not marks.isdisjoint(text)
+
+
 def mojibake(text: str) -> tuple[str, str]:
     """Repair mojibake where ftfy's badness measure says the result is more plausible.
 
     >>> mojibake("bÉ›lÉ› kamÉ›")[0]
     'bɛlɛ kamɛ'
     """
-    if text.isascii():
-        return text, ""      # mojibake is non-ASCII by nature: ftfy's patterns all need such a character
+    if not _may_be_mojibake(text):
+        return text, ""      # most text: none of the characters any of ftfy's patterns needs
     import ftfy
     from ftfy.badness import badness, is_bad
 
@@ -206,7 +264,7 @@ def normalise_text(text: str, params: Params, apostrophe: str = "keep",
 
 def _looks_bad(text: str) -> bool:
     from ftfy.badness import is_bad
-    return not text.isascii() and is_bad(text)
+    return _may_be_mojibake(text) and is_bad(text)
 
 
 def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple = (),
