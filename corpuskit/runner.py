@@ -25,7 +25,8 @@ from .stages.contract import Applied, Figures, Kind, Partition, Services, module
 from .stages.registry import STAGE_ORDER, STAGES
 from .storage import Cache, file_sha256, stable_hash
 
-__all__ = ["Runner", "RunResult", "StageReport", "Partition", "run_map_task", "run_survey_task", "OutputLock"]
+__all__ = ["Runner", "RunResult", "StageReport", "Partition", "run_map_task", "run_chain_task", "run_survey_task",
+           "OutputLock"]
 
 
 @dataclass
@@ -126,9 +127,30 @@ QUIET_INGEST_REASONS = {"whitespace-only", "encoding-detected"}
 
 def run_map_task(cache_root: str, stage_name: str, params: Any, ctx: Any, in_stage: str, in_key: str,
                  out_key: str) -> dict:
-    stage = STAGES[stage_name]
+    cache = Cache(Path(cache_root).parent)
+    return apply_stage(cache, stage_name, params, ctx, cache.read_docs(in_stage, in_key), in_key, out_key)[1]
+
+
+def run_chain_task(cache_root: str, steps: list[tuple[str, Any, Any, str]], in_stage: str, in_key: str) -> list[dict]:
+    """Consecutive map stages on one partition in one task: ``steps`` are (stage, params, context,
+    output key).  The input is read once; each stage's output is written to the cache as its own
+    partition (``--until``, ``--only`` and later runs find it there) and handed to the next stage
+    as the cache would give it back."""
     cache = Cache(Path(cache_root).parent)
     docs = cache.read_docs(in_stage, in_key)
+    results = []
+    for stage_name, params, ctx, out_key in steps:
+        table, result = apply_stage(cache, stage_name, params, ctx, docs, in_key, out_key)
+        docs, in_key = table.to_pylist(), out_key
+        results.append(result)
+    return results
+
+
+def apply_stage(cache: Cache, stage_name: str, params: Any, ctx: Any, docs: list[dict], in_key: str,
+                out_key: str):
+    """Apply one map (or global) stage to one partition's documents, check that no unit was lost,
+    and write the output partition; its table and its counts."""
+    stage = STAGES[stage_name]
     n_in = len(docs)
     segs_in = sum(len(d["segments"]) for d in docs)
     started = time.perf_counter()
@@ -142,8 +164,8 @@ def run_map_task(cache_root: str, stage_name: str, params: Any, ctx: Any, in_sta
     marker = {"counts": counts.as_dict(), "docs": n_in, "seconds": time.perf_counter() - started}
     if figures is not None:
         marker["figures"] = figures.as_dict()
-    cache.write_partition(stage_name, out_key, out, rows, marker)
-    return {"counts": counts.as_dict()}
+    table = cache.write_partition(stage_name, out_key, out, rows, marker)
+    return table, {"counts": counts.as_dict()}
 
 
 def run_survey_task(cache_root: str, stage_name: str, params: Any, in_stage: str, in_key: str) -> Any:
@@ -177,6 +199,22 @@ def _check_script_removals(recipe: Recipe, report: StageReport) -> None:
         raise RecipeError(f"{recipe.path}: stage '{report.name}' removed {share:.0%} of the text as not written in the "
                           f"target script {recipe.corpus.target_script}; set [corpus] target_script to the script the "
                           "text is written in (the script inventory of a run with --until script shows it).")
+
+
+def map_chains(names: list[str]) -> dict[str, list[str]]:
+    """Runs of two or more consecutive map stages, by their first stage; a stage with a survey
+    (which must see all of its input partitions first) can only begin one."""
+    chains: list[list[str]] = []
+    current: list[str] = []
+    for name in names + [""]:
+        stage = STAGES.get(name)
+        if stage is not None and stage.kind is Kind.MAP and not (current and stage.survey is not None):
+            current.append(name)
+            continue
+        if len(current) > 1:
+            chains.append(current)
+        current = [name] if stage is not None and stage.kind is Kind.MAP else []
+    return {c[0]: c for c in chains}
 
 
 # -- the runner ----------------------------------------------------------------------------
@@ -223,10 +261,19 @@ class Runner:
         reports: list[StageReport] = []
         parts = self._ingest(reports, execute=not only or only == "ingest")
         stage_in = "ingest"
-        for name in STAGE_ORDER[1:STAGE_ORDER.index(last) + 1]:
+        names = STAGE_ORDER[1:STAGE_ORDER.index(last) + 1]
+        chains = map_chains(names) if not only else {}
+        for i, name in enumerate(names):
             execute = not only or only == name
             kind = STAGES[name].kind
-            if kind is Kind.MAP:
+            if name in chains:        # consecutive map stages, one pass per partition
+                chain = chains[name]
+                parts = self._map_chain(chain, stage_in, parts, reports)
+                for report in reports[-len(chain):]:
+                    _check_script_removals(self.recipe, report)
+            elif kind is Kind.MAP and any(name in c for c in chains.values()):
+                pass                  # run in its chain
+            elif kind is Kind.MAP:
                 parts = self._map_stage(name, stage_in, parts, reports, execute)
                 _check_script_removals(self.recipe, reports[-1])
             elif kind is Kind.GLOBAL:
@@ -325,6 +372,75 @@ class Runner:
         report.seconds = time.perf_counter() - started
         reports.append(report)
         return out
+
+    def _map_chain(self, names: list[str], in_stage: str, parts: list[Partition],
+                   reports: list[StageReport]) -> list[Partition]:
+        """Consecutive map stages as one pass: each partition goes through all of them in one task
+        (from the first stage whose result is not cached), each stage's result cached under the
+        key ``_map_stage`` would give it.  A stage's seconds are its share of the pass's time, in
+        proportion to the time its partitions took on the workers."""
+        started = time.perf_counter()
+        stages = [STAGES[n] for n in names]
+        params = [self.recipe.stages[n] for n in names]
+        ctx_keys, keys, survey_keys = [], [], {}
+        in_keys = [p.key for p in parts]
+        for j, (name, stage) in enumerate(zip(names, stages)):
+            ctx_key = stage.context_key(self.recipe, params[j])
+            self.cache.use_context(name, ctx_key)
+            self.services.context_keys[name] = ctx_key
+            ctx_keys.append(ctx_key)
+            if stage.survey is not None:       # only a chain's first stage has one (see map_chains)
+                for source in self.recipe.sources:
+                    skey = survey_key(stage, params[j], ctx_key, [p.key for p in parts if p.source == source.id])
+                    survey_keys[source.id] = skey
+                    self.cache.use(name, f"survey-{skey}")
+            keys.append([partition_key(stage, params[j], k, ctx_key, survey_keys.get(p.source, "") if j == 0 else "")
+                         for p, k in zip(parts, in_keys)])
+            in_keys = keys[-1]
+        first_missing = [next((j for j in range(len(names)) if not self.cache.done(names[j], keys[j][i])), None)
+                         for i in range(len(parts))]
+        contexts: list[Any] = [None] * len(names)
+        for j, (name, stage) in enumerate(zip(names, stages)):
+            if any(f is not None and f <= j for f in first_missing):
+                contexts[j] = stage.build_context(self.recipe, params[j], self.cache, ctx_keys[j])
+        surveys: dict[str, Any] = {}
+        if stages[0].survey is not None:
+            needed = sorted({p.source for p, f in zip(parts, first_missing) if f == 0} & set(survey_keys))
+            surveys = self._surveys(names[0], stages[0], params[0], in_stage, parts, {s: survey_keys[s] for s in needed})
+
+        def context(j: int, part: Partition) -> Any:
+            if j == 0 and stages[0].survey is not None:
+                return stages[0].survey.context(contexts[0], surveys.get(part.source))
+            return contexts[j]
+
+        args = [(str(self.cache.root), [(names[j], params[j], context(j, p), keys[j][i]) for j in range(f, len(names))],
+                 in_stage if f == 0 else names[f - 1], p.key if f == 0 else keys[f - 1][i])
+                for i, (p, f) in enumerate(zip(parts, first_missing)) if f is not None]
+        with self.progress(f"{names[0]}..{names[-1]}" if len(names) > 1 else names[0], len(args)) as tick:
+            for _, results in self.engine.imap(run_chain_task, args):
+                tick(results[0]["counts"]["docs_in"])
+        self._rest(bool(args))
+        chain_reports, worker_seconds = [], []
+        for j, (name, stage) in enumerate(zip(names, stages)):
+            report, spent = StageReport(name), 0.0
+            for i, _ in enumerate(parts):
+                marker = self.cache.marker(name, keys[j][i])
+                report.counts = report.counts.add(Counts.from_dict(marker["counts"]))
+                if stage.figures is not None:
+                    part = stage.figures.from_dict(marker.get("figures", {}))
+                    report.figures = part if report.figures is None else report.figures.merge(part)
+                if first_missing[i] is not None and first_missing[i] <= j:
+                    report.computed += 1
+                    spent += marker.get("seconds", 0.0)
+            report.reused = len(parts) - report.computed
+            self.last_keys[name] = keys[j]
+            chain_reports.append(report)
+            worker_seconds.append(spent)
+        wall, total = time.perf_counter() - started, sum(worker_seconds)
+        for report, spent in zip(chain_reports, worker_seconds):
+            report.seconds = wall * spent / total if total else wall / len(names)
+        reports.extend(chain_reports)
+        return [Partition(p.source, k) for p, k in zip(parts, keys[-1])]
 
     def _rest(self, worked: bool) -> None:
         """After a step that did work: the engine frees what it can (large workers exit, heaps

@@ -187,14 +187,18 @@ class Cache:
         return json.loads((self._dir(stage) / f"{key}.json").read_text("utf-8"))
 
     def write_partition(self, stage: str, key: str, docs: list[dict], rows: list[LedgerRow],
-                        marker: dict[str, Any]) -> None:
+                        marker: dict[str, Any]) -> pa.Table:
+        """Write a stage's output partition, its ledger rows and its marker; the documents' table
+        (``read_docs`` gives back ``table.to_pylist()``)."""
         self.use(stage, key)
         d = self._dir(stage)
-        atomic_write_bytes(d / f"{key}.parquet", _parquet_bytes(table_of(docs, SCHEMA)))
+        table = table_of(docs, SCHEMA)
+        atomic_write_bytes(d / f"{key}.parquet", _parquet_bytes(table))
         ledger = pa.Table.from_pydict({name: [getattr(r, name) for r in rows] for name in LEDGER_SCHEMA.names},
                                       schema=LEDGER_SCHEMA)
         atomic_write_bytes(d / f"{key}.ledger.parquet", _parquet_bytes(ledger))
         atomic_write_text(d / f"{key}.json", json.dumps({"format": FORMAT_VERSION, **marker}, sort_keys=True))
+        return table
 
     def read_docs(self, stage: str, key: str) -> list[dict]:
         self.use(stage, key)

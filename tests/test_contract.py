@@ -240,6 +240,46 @@ def test_a_run_with_other_partitions_writes_the_same_outputs(demo_run, tmp_path)
             assert read(a / name) == read(b / name), (part, name)
 
 
+def test_consecutive_map_stages_form_one_pass_and_a_surveying_stage_begins_one():
+    from corpuskit.runner import map_chains
+    from corpuskit.stages.registry import STAGE_ORDER
+    assert map_chains(STAGE_ORDER[1:]) == {"clean": ["clean", "normalise", "script", "variants", "langid", "filter"]}
+    assert map_chains(["normalise", "clean", "script"]) == {"clean": ["clean", "script"]}   # clean has a survey
+    assert map_chains(["filter", "dedup", "split"]) == {} and map_chains(["script"]) == {}
+
+
+def _partitions(out: Path) -> dict[str, bytes]:
+    return {str(p.relative_to(out)): p.read_bytes() for p in sorted((out / ".cache").glob("*/*.parquet"))}
+
+
+def test_one_pass_caches_what_the_stages_cache_run_one_at_a_time(tmp_path):
+    """The map stages run as one pass per partition write, under the same keys, byte for byte the
+    partitions they write when each runs alone (``--only``); the outputs are the same; and a
+    changed stage in the middle of the pass recomputes it and the stages after it only."""
+    from corpuskit.api import run
+    from corpuskit.stages.registry import STAGE_ORDER
+    recipe = copy_demo(tmp_path)
+    run(recipe, tmp_path / "alone", workers=1, until="ingest")
+    for name in STAGE_ORDER[1:STAGE_ORDER.index("split") + 1]:
+        assert run(recipe, tmp_path / "alone", workers=1, only=name).stage(name).computed > 0
+    alone = run(recipe, tmp_path / "alone", workers=1)
+    assert all(s.computed == 0 for s in alone.stages if s.name not in ("export", "ingest"))
+    together = run(recipe, tmp_path / "pass", workers=1)
+    assert _partitions(tmp_path / "alone") == _partitions(tmp_path / "pass")
+    for part in ("corpus", "splits", "reports"):
+        for a in sorted((tmp_path / "alone" / part).iterdir()):
+            b = tmp_path / "pass" / part / a.name
+            read = (lambda p: gzip.decompress(p.read_bytes())) if a.name.endswith(".gz") else Path.read_bytes
+            assert read(a) == read(b), a.name
+    assert [s.name for s in together.stages] == STAGE_ORDER
+    recipe.write_text(recipe.read_text().replace("[stages.script]", "[stages.filter]\nmin_chars = 12\n\n[stages.script]"))
+    changed = run(recipe, tmp_path / "pass", workers=1)
+    n = changed.stage("clean").reused
+    assert [(changed.stage(s).computed, changed.stage(s).reused) for s in ("clean", "normalise", "script", "variants", "langid")] \
+        == [(0, n)] * 5
+    assert (changed.stage("filter").computed, changed.stage("filter").reused) == (n, 0)
+
+
 def test_the_conservation_check_raises_on_a_lost_segment():
     doc = {"id": "s:1", "segments": ["a", "b", "c"], "seg_index": [0, 1, 2]}
     lost = dict(doc, segments=["a", "c"], seg_index=[0, 2])
