@@ -13,7 +13,7 @@ from functools import lru_cache
 
 import regex
 
-__all__ = ["words", "NO_SPACE"]
+__all__ = ["words", "words_of", "NO_SPACE"]
 
 WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{ZERO WIDTH NON-JOINER}\N{ZERO WIDTH JOINER}ʼ'’-]+")
 NO_SPACE = regex.compile(r"[\p{Thai}\p{Lao}\p{Khmer}\p{Myanmar}\p{Han}\p{Hiragana}\p{Katakana}\p{Tibetan}]")
@@ -47,3 +47,16 @@ def words(text: str, language: str = "") -> list[str]:
     if NO_SPACE.search(text):
         return _dictionary_words(text, language)
     return [w for w in WORD.findall(text) if w.strip("-'’ʼ\u200c\u200d")]
+
+
+def words_of(texts: list[str], language: str = "") -> list[str]:
+    """The words of several texts in order: ``words`` of each, concatenated (found in one pass
+    over the texts joined by line feeds, which no word holds, unless a text needs the dictionary).
+
+    >>> words_of(["ba’a ŋɔ-bɛ,", "kamɛ!"])
+    ['ba’a', 'ŋɔ-bɛ', 'kamɛ']
+    """
+    joined = "\n".join(texts)
+    if NO_SPACE.search(joined):
+        return [w for t in texts for w in words(t, language)]
+    return [w for w in WORD.findall(joined) if w.strip("-'’ʼ\u200c\u200d")]

@@ -4,6 +4,7 @@ import random
 import unicodedata
 
 import pytest
+from hypothesis import given, settings, strategies as st
 
 from corpuskit.errors import RecipeError
 from corpuskit.recipe import load_recipe
@@ -157,3 +158,10 @@ def test_subtitle_cues_grouped_by_minutes(tmp_path):
     docs = list(srt.read(TextFile(p, "t.srt", "s"), srt.Options(minutes=2)))
     assert [len(d["segments"]) for d in docs] == [2, 2, 2] and len({d["key"] for d in docs}) == 3
     assert len(list(srt.read(TextFile(p, "t.srt", "s"), srt.Options()))) == 1
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.lists(st.text(alphabet=st.sampled_from("ab ŋɛ-'’\u200d\u0301,.\n\tสวัส中Σς1"), max_size=14), max_size=6))
+def test_words_of_several_texts_are_the_words_of_each_in_order(texts):
+    from corpuskit.words import words_of
+    assert words_of(texts, "th") == [w for t in texts for w in words(t, "th")]

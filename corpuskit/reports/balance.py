@@ -14,7 +14,7 @@ from pathlib import Path
 
 
 from ..sheets import csv_text as _csv, neutralise_cell
-from ..words import words as split_words
+from ..words import words_of
 from ..storage import atomic_write_text
 from .stats import effective_number, heaps_fit, imbalance_ratio, jaccard, shannon_entropy, temperature_weights
 
@@ -35,7 +35,7 @@ class Accumulator:
         self._new_words: dict[str, list] = defaultdict(list)      # dialect -> [position, word] (for state)
 
     def add(self, doc: dict) -> None:
-        words = [w.casefold() for s in doc["segments"] for w in split_words(s, self.language)]
+        words = [w.casefold() for w in words_of(doc["segments"], self.language)]
         d = doc.get("dialect") or "unknown"
         seen, start = self.types["dialect"][d], self.rows["dialect"][d]["words"]
         for k, w in enumerate(words):
