@@ -16,8 +16,9 @@ Runs are interleaved A B A B; each run's CPU is counted over the whole process t
 process becomes a child subreaper (prctl PR_SET_CHILD_SUBREAPER), so pool workers that outlive
 their parent are re-parented here and reaped, and RUSAGE_CHILDREN then holds all of them.
 Prints wall s, CPU s, MB/s and CPU s/MB of each side, the ratios, both sides' precision and
-recall against the planted truth, and a table of corpuskit's per-stage time against the bare
-library operation of that stage on the same text.
+recall against the planted truth, and a table of corpuskit's per-stage time (with 2 workers, and
+in a run with one worker, which is about the stage's CPU) against the bare library operation of
+that stage on the same text.
 
     python benchmarks/pipeline.py [--mb 10] [--pairs 2] [--work .bench/pipeline]
 """
@@ -295,13 +296,20 @@ def main() -> None:
               f"precision {p:.3f} recall {r:.3f}")
     (bw, bc), (cw, cc) = result["baseline"], result["corpuskit"]
     print(f"corpuskit / baseline: {bw / cw:.2f}x the MB/s (goal 10x), {cc / bc:.2f}x the CPU")
+    # Per stage: its seconds in a run with one worker (everything in one process, so about its CPU),
+    # against the stage's bare library operation on the same text in one process.
+    one = folder / "out-corpuskit-1"
+    shutil.rmtree(one, ignore_errors=True)
+    wall1, cpu1 = timed([sys.executable, "-m", "corpuskit.cli", "run", str(folder / "recipe.toml"), "--out", str(one),
+                         "--no-progress", "--workers", "1"])
+    print(f"corpuskit, one worker: wall {wall1:6.1f} s  CPU {cpu1:6.1f} s  {cpu1 / mb:5.2f} CPU s/MB")
     bare = bare_operations(folder)
-    stages = stage_seconds(folder / "out-corpuskit")
-    print("stage      stage s   bare s   ratio   (bare: the stage's library operation alone, one process)")
-    for name, seconds in stages.items():
+    two, single = stage_seconds(folder / "out-corpuskit"), stage_seconds(one)
+    print("stage      2 workers s  1 worker s   bare s   1 worker / bare   (bare: the stage's library operation alone)")
+    for name, seconds in single.items():
         b = bare.get(name)
-        ratio = f"{seconds / b:7.1f}" if b else "      -"
-        print(f"{name:10s} {seconds:7.2f} {b if b is not None else float('nan'):8.2f} {ratio}")
+        ratio = f"{seconds / b:10.1f}" if b else "         -"
+        print(f"{name:10s} {two.get(name, float('nan')):11.2f} {seconds:11.2f} {b if b is not None else float('nan'):8.2f} {ratio}")
 
 
 if __name__ == "__main__":

@@ -116,12 +116,13 @@ def _documents(source: SourceSpec, files: list[tuple[str, str]], issues: list[Le
         tf = TextFile(Path(path), rel, source.id, source.encoding, issues, warnings, tuple(source.encodings))
         if source.format == "warc":
             tf.lines = lambda: iter(())  # the WARC reader streams records itself
+        prefix = f"{source.id}:{key_of(rel)}:"
         for d in reader.read(tf, opts):
             fields = dict(base)
             for name in ("dialect", "contributor", "date"):
                 if d.get(name):
                     fields[name] = d[name]
-            yield new_document(id=f"{source.id}:{key_of(rel)}:{d['key']}", segments=d["segments"], meta=d["meta"], **fields)
+            yield new_document(id=f"{prefix}{d['key']}", segments=d["segments"], meta=d["meta"], **fields)
 
 
 def ingest_unit(source: SourceSpec, files: list[tuple[str, str]], partition_docs: int,
