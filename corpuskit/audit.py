@@ -180,8 +180,12 @@ class LeakAudit:
                             for text in texts:
                                 self.check(text, rel, n, key, segment=True)
                         continue
-                    for text in dict.fromkeys(_strings(value)):   # a field's repeated values once
-                        self.check(text, rel, n, key)
+                    if value is None or isinstance(value, (bool, int, float)):
+                        continue                                     # no text (most fields: one string)
+                    texts = (value,) if isinstance(value, str) else dict.fromkeys(_strings(value))
+                    for text in texts:                               # a field's repeated values once
+                        for kind in self._verdict(text, False, False):
+                            self.hits.append(Hit(rel, n, kind, key))
 
     def _scan_csv(self, path: Path, rel: str) -> None:
         with open(path, encoding="utf-8", newline="") as f:
