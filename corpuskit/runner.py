@@ -139,9 +139,10 @@ def run_chain_task(cache_root: str, steps: list[tuple[str, Any, Any, str]], in_s
     cache = Cache(Path(cache_root).parent)
     docs = cache.read_docs(in_stage, in_key)
     results = []
-    for stage_name, params, ctx, out_key in steps:
+    for n, (stage_name, params, ctx, out_key) in enumerate(steps, 1):
         table, result = apply_stage(cache, stage_name, params, ctx, docs, in_key, out_key)
-        docs, in_key = table.to_pylist(), out_key
+        if n < len(steps):
+            docs, in_key = table.to_pylist(), out_key
         results.append(result)
     return results
 
@@ -262,20 +263,18 @@ class Runner:
         parts = self._ingest(reports, execute=not only or only == "ingest")
         stage_in = "ingest"
         names = STAGE_ORDER[1:STAGE_ORDER.index(last) + 1]
-        chains = map_chains(names) if not only else {}
-        for i, name in enumerate(names):
+        chains = map_chains(names) if not only else {}     # with --only, each stage alone
+        in_chain = {n for chain in chains.values() for n in chain[1:]}
+        for name in names:
             execute = not only or only == name
             kind = STAGES[name].kind
-            if name in chains:        # consecutive map stages, one pass per partition
-                chain = chains[name]
-                parts = self._map_chain(chain, stage_in, parts, reports)
+            if kind is Kind.MAP and name not in in_chain:   # one map stage, or the first of a pass
+                chain = chains.get(name, [name])
+                parts = self._map_stages(chain, stage_in, parts, reports, execute)
                 for report in reports[-len(chain):]:
                     _check_script_removals(self.recipe, report)
-            elif kind is Kind.MAP and any(name in c for c in chains.values()):
-                pass                  # run in its chain
             elif kind is Kind.MAP:
-                parts = self._map_stage(name, stage_in, parts, reports, execute)
-                _check_script_removals(self.recipe, reports[-1])
+                pass                  # run in its pass
             elif kind is Kind.GLOBAL:
                 parts = self._global_stage(name, stage_in, parts, reports, execute)
             elif kind is Kind.EXPORT:
@@ -331,54 +330,30 @@ class Runner:
             for i, result in self.engine.imap(run_map_task, args):
                 tick(result["counts"]["docs_in"])
         self._rest(bool(todo))
+        self._collect(name, [k for _, k, _ in jobs], report)
+        report.computed, report.reused = len(todo), len(jobs) - len(todo)
+        return [Partition(p.source, k) for p, k, _ in jobs]
+
+    def _collect(self, name: str, keys: list[str], report: StageReport) -> list[dict]:
+        """A stage's counts and figures from its partitions' markers, into ``report``; the stage's
+        keys are recorded for export.  The markers, in order."""
         figures_type = STAGES[name].figures
-        for p, k, _ in jobs:
-            marker = self.cache.marker(name, k)
+        markers = [self.cache.marker(name, k) for k in keys]
+        for marker in markers:
             report.counts = report.counts.add(Counts.from_dict(marker["counts"]))
             if figures_type is not None:
                 part = figures_type.from_dict(marker.get("figures", {}))
                 report.figures = part if report.figures is None else report.figures.merge(part)
-        report.computed, report.reused = len(todo), len(jobs) - len(todo)
-        self.last_keys[name] = [k for _, k, _ in jobs]
-        return [Partition(p.source, k) for p, k, _ in jobs]
+        self.last_keys[name] = keys
+        return markers
 
-    def _map_stage(self, name: str, in_stage: str, parts: list[Partition], reports: list[StageReport],
-                   execute: bool) -> list[Partition]:
-        stage = STAGES[name]
-        params = self.recipe.stages[name]
-        report = StageReport(name)
-        started = time.perf_counter()
-        ctx_key = stage.context_key(self.recipe, params)
-        self.cache.use_context(name, ctx_key)
-        self.services.context_keys[name] = ctx_key
-        surveys: dict[str, tuple[str, Any]] = {}
-        if stage.survey is not None:
-            for source in self.recipe.sources:
-                skey = survey_key(stage, params, ctx_key, [p.key for p in parts if p.source == source.id])
-                surveys[source.id] = (skey, None)
-                self.cache.use(name, f"survey-{skey}")
-        keys = {p.key: partition_key(stage, params, p.key, ctx_key, surveys.get(p.source, ("", None))[0]) for p in parts}
-        missing = [p for p in parts if not self.cache.done(name, keys[p.key])]
-        ctx = None
-        if missing and execute:
-            ctx = stage.build_context(self.recipe, params, self.cache, ctx_key)
-            needed = sorted({p.source for p in missing} & set(surveys))
-            done = self._surveys(name, stage, params, in_stage, parts, {s: surveys[s][0] for s in needed})
-            for source_id in needed:
-                surveys[source_id] = (surveys[source_id][0], done[source_id])
-        jobs = [(p, keys[p.key], stage.survey.context(ctx, surveys.get(p.source, ("", None))[1])
-                 if stage.survey is not None else ctx) for p in parts]
-        out = self._run_partitions(name, in_stage, jobs, report, execute)
-        report.seconds = time.perf_counter() - started
-        reports.append(report)
-        return out
-
-    def _map_chain(self, names: list[str], in_stage: str, parts: list[Partition],
-                   reports: list[StageReport]) -> list[Partition]:
-        """Consecutive map stages as one pass: each partition goes through all of them in one task
-        (from the first stage whose result is not cached), each stage's result cached under the
-        key ``_map_stage`` would give it.  A stage's seconds are its share of the pass's time, in
-        proportion to the time its partitions took on the workers."""
+    def _map_stages(self, names: list[str], in_stage: str, parts: list[Partition],
+                    reports: list[StageReport], execute: bool = True) -> list[Partition]:
+        """One map stage, or consecutive map stages as one pass: each partition goes through all
+        of them in one task (from the first stage whose result is not cached), each stage's result
+        cached under its own key, the same whether it runs alone or in a pass.  A stage's seconds
+        are its share of the pass's time, in proportion to the time its partitions took on the
+        workers.  Without ``execute`` (another stage's ``--only``) every result must be cached."""
         started = time.perf_counter()
         stages = [STAGES[n] for n in names]
         params = [self.recipe.stages[n] for n in names]
@@ -399,6 +374,10 @@ class Runner:
             in_keys = keys[-1]
         first_missing = [next((j for j in range(len(names)) if not self.cache.done(names[j], keys[j][i])), None)
                          for i in range(len(parts))]
+        if not execute:
+            for i, f in enumerate(first_missing):
+                if f is not None:
+                    self._require(names[f], keys[f][i])
         contexts: list[Any] = [None] * len(names)
         for j, (name, stage) in enumerate(zip(names, stages)):
             if any(f is not None and f <= j for f in first_missing):
@@ -421,21 +400,12 @@ class Runner:
                 tick(results[0]["counts"]["docs_in"])
         self._rest(bool(args))
         chain_reports, worker_seconds = [], []
-        for j, (name, stage) in enumerate(zip(names, stages)):
-            report, spent = StageReport(name), 0.0
-            for i, _ in enumerate(parts):
-                marker = self.cache.marker(name, keys[j][i])
-                report.counts = report.counts.add(Counts.from_dict(marker["counts"]))
-                if stage.figures is not None:
-                    part = stage.figures.from_dict(marker.get("figures", {}))
-                    report.figures = part if report.figures is None else report.figures.merge(part)
-                if first_missing[i] is not None and first_missing[i] <= j:
-                    report.computed += 1
-                    spent += marker.get("seconds", 0.0)
-            report.reused = len(parts) - report.computed
-            self.last_keys[name] = keys[j]
+        for j, name in enumerate(names):
+            computed = [i for i, f in enumerate(first_missing) if f is not None and f <= j]
+            report = StageReport(name, computed=len(computed), reused=len(parts) - len(computed))
+            markers = self._collect(name, keys[j], report)
             chain_reports.append(report)
-            worker_seconds.append(spent)
+            worker_seconds.append(sum(markers[i].get("seconds", 0.0) for i in computed))
         wall, total = time.perf_counter() - started, sum(worker_seconds)
         for report, spent in zip(chain_reports, worker_seconds):
             report.seconds = wall * spent / total if total else wall / len(names)
