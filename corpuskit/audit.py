@@ -42,6 +42,7 @@ _DATA_URI = regex.compile(r"data:[\w/+.-]+;base64,[A-Za-z0-9+/=]+")
 _TAG = regex.compile(r"<[^>]*>")
 MEMO_CHARS = 200             # strings up to this long are judged once per audit ...
 MEMO_SIZE = 200_000          # ... remembering at most this many at a time
+CLEAN_LINES_SIZE = 500_000   # hashes of lines without a hit remembered per kind of line (about 30 MB)
 _NUMBER = regex.compile(r"^-?\d+(?:\.\d+)?(?:e-?\d+)?$")
 
 
@@ -80,6 +81,7 @@ class LeakAudit:
     regions: tuple = ()
     scrub_pii: bool = True
     _memo: dict = field(default_factory=dict, init=False, repr=False, compare=False)
+    _clean_lines: dict = field(default_factory=dict, init=False, repr=False, compare=False)
     hits: list[Hit] = field(default_factory=list)
 
     def __post_init__(self):
@@ -146,6 +148,19 @@ class LeakAudit:
             self._memo[(text, segment, example)] = found
         return found
 
+    def _clean(self, kind: str) -> set[int]:
+        """Hashes of the lines of this ``kind`` scanned so far without a hit: a line with the same
+        text is not judged again (the split files repeat the corpus files' records and lines).
+        Python's own string hash: SipHash with a key drawn per process, 64 bits, which no text can
+        be made to collide with on purpose; the memo lives as long as this audit."""
+        return self._clean_lines.setdefault(kind, set())
+
+    def _remember_clean(self, clean: set[int], key: int, hits_before: int) -> None:
+        if len(self.hits) == hits_before:
+            if len(clean) >= CLEAN_LINES_SIZE:
+                clean.clear()
+            clean.add(key)
+
     # -- files ---------------------------------------------------------------------------------
     def scan(self, out: Path, files: Iterable[Path] | None = None) -> list[Hit]:
         """Scan ``files`` of the output folder ``out`` (default: every public file); all hits so far."""
@@ -166,26 +181,35 @@ class LeakAudit:
         return self.hits
 
     def _scan_records(self, path: Path, rel: str) -> None:
+        clean = self._clean("record")
         with gzip.open(path, "rt", encoding="utf-8", newline="\n") as f:
             for n, line in enumerate(f, 1):
-                record = json.loads(line)
-                if record.get("source") in self.restricted_sources:
-                    self.hits.append(Hit(rel, n, "restricted-source", "source"))
-                for key, value in record.items():
-                    if key in SEGMENT_FIELDS:
-                        texts = list(_strings(value))
-                        # One quick test over all of a document's segments: most hold nothing any
-                        # personal-data detector could match, and then no segment needs one.
-                        if self.id_patterns or may_hold_personal_data("\n".join(texts)):
-                            for text in texts:
-                                self.check(text, rel, n, key, segment=True)
-                        continue
-                    if value is None or isinstance(value, (bool, int, float)):
-                        continue                                     # no text (most fields: one string)
-                    texts = (value,) if isinstance(value, str) else dict.fromkeys(_strings(value))
-                    for text in texts:                               # a field's repeated values once
-                        for kind in self._verdict(text, False, False):
-                            self.hits.append(Hit(rel, n, kind, key))
+                key = hash(line)
+                if key in clean:
+                    continue
+                before = len(self.hits)
+                self._scan_record(json.loads(line), rel, n)
+                self._remember_clean(clean, key, before)
+
+    def _scan_record(self, record: dict, rel: str, n: int) -> None:
+        """The checks on one corpus record (line ``n`` of ``rel``)."""
+        if record.get("source") in self.restricted_sources:
+            self.hits.append(Hit(rel, n, "restricted-source", "source"))
+        for key, value in record.items():
+            if key in SEGMENT_FIELDS:
+                texts = list(_strings(value))
+                # One quick test over all of a document's segments: most hold nothing any
+                # personal-data detector could match, and then no segment needs one.
+                if self.id_patterns or may_hold_personal_data("\n".join(texts)):
+                    for text in texts:
+                        self.check(text, rel, n, key, segment=True)
+                continue
+            if value is None or isinstance(value, (bool, int, float)):
+                continue                                     # no text (most fields: one string)
+            texts = (value,) if isinstance(value, str) else dict.fromkeys(_strings(value))
+            for text in texts:                               # a field's repeated values once
+                for kind in self._verdict(text, False, False):
+                    self.hits.append(Hit(rel, n, kind, key))
 
     def _scan_csv(self, path: Path, rel: str) -> None:
         with open(path, encoding="utf-8", newline="") as f:
@@ -202,12 +226,18 @@ class LeakAudit:
             self.check(text, rel, 1)
 
     def _scan_lines(self, path: Path, rel: str, segments: bool = False, html_text: bool = False) -> None:
+        clean = self._clean(f"lines:{segments}:{html_text}")
         with open(path, encoding="utf-8", newline="\n") as f:
             for n, line in enumerate(f, 1):
                 if html_text:
                     line = html.unescape(_TAG.sub(" ", _DATA_URI.sub(" ", line)))
-                if line.strip():
+                if not line.strip():
+                    continue
+                key = hash(line)
+                if key not in clean:
+                    before = len(self.hits)
                     self.check(line.rstrip("\n"), rel, n, segment=segments)
+                    self._remember_clean(clean, key, before)
 
 
 def scan_files(checker: LeakAudit, out: Path, files: list[Path]) -> list[Hit]:

@@ -218,6 +218,26 @@ def test_a_public_segment_that_begins_like_a_restricted_one_is_no_leak(tmp_path)
     assert [h.kind for h in LeakAudit(restricted, [], set()).scan(tmp_path)] == ["restricted-text"]
 
 
+def test_a_leak_repeated_in_the_split_files_is_reported_in_each(tmp_path, monkeypatch):
+    """The split files repeat the corpus files' records and lines: a repeat of a line without a
+    hit is not judged again, a repeat of a line with one is reported again, in its own file."""
+    leaky = json.dumps({"id": "web:1", "source": "web", "segments": ["kema tabu"], "meta": {"note": "ask +254 712 345678"}})
+    clean = json.dumps({"id": "web:2", "source": "web", "segments": ["kema tabu sogo"], "meta": {}})
+    judged = []
+    original = LeakAudit._scan_record
+    monkeypatch.setattr(LeakAudit, "_scan_record", lambda self, r, rel, n: (judged.append((rel, n)), original(self, r, rel, n)))
+    hits = _audit_folder(tmp_path, {
+        "corpus/corpus-00000.jsonl.gz": f"{clean}\n{leaky}\n",
+        "corpus/corpus.txt": "kema tabu sogo\ncall +254 712 345678\n",
+        "splits/train.jsonl.gz": f"{leaky}\n{clean}\n",
+        "splits/train.txt": "call +254 712 345678\nkema tabu sogo\n",
+    })
+    assert [(h.file, h.line, h.kind) for h in hits] == [
+        ("corpus/corpus-00000.jsonl.gz", 2, "personal-data:phone"), ("corpus/corpus.txt", 2, "personal-data:phone"),
+        ("splits/train.jsonl.gz", 1, "personal-data:phone"), ("splits/train.txt", 1, "personal-data:phone")]
+    assert judged == [("corpus/corpus-00000.jsonl.gz", 1), ("corpus/corpus-00000.jsonl.gz", 2), ("splits/train.jsonl.gz", 1)]
+
+
 def test_leak_audit_passes_clean_files(tmp_path):
     assert _audit_folder(tmp_path, {"reports/a.csv": "word,count\nkema,3\n",
                                     "corpus/corpus.txt": "kema tabu on 17.09.1971\n"}) == []
