@@ -196,3 +196,48 @@ def test_mojibake_marks_are_the_characters_mojibake_is_made_of():
     marks = mojibake_marks()
     assert marks is not None and {"Ã", "Â", "\x80", "\x9f"} <= marks and not {"ɛ", "ɔ", "ŋ", "a"} & marks
     assert mojibake("bÃ©lÃ© kamÃ©")[0] == "bélé kamé"
+
+
+# Letters of several scripts, Common and Inherited characters (one of them, U+0342 and U+0363,
+# used by one script alone per Script_Extensions in the Unicode Character Database), an unassigned
+# code point, a lone surrogate and the modifier letter apostrophe.
+_SCRIPT_MIX = "aé ŋɛкаαΜ\u0301\u0342\u03631,ب،\u200d\u0378ʼ中\ud800.-"
+
+
+@settings(max_examples=500, deadline=None)
+@given(st.lists(st.text(alphabet=st.sampled_from(_SCRIPT_MIX), max_size=10), max_size=8))
+def test_scripts_worked_out_column_wise_are_the_per_token_rules_answer(texts):
+    from corpuskit.stages.script import _scripts_in, plain_scripts, text_script
+    for text, found in zip(texts, plain_scripts(texts), strict=True):
+        if found is not None:
+            assert _scripts_in(text) <= 1 and found == text_script(text), text
+
+
+def test_plain_text_of_one_script_is_decided_column_wise():
+    from corpuskit.stages.script import plain_scripts
+    assert plain_scripts(["ŋɔ kamɛ́!", "123 ...", "кама", "", "kaкa", "a\u0363b"]) == \
+        ["Latn", "Zyyy", "Cyrl", None, None, None]
+
+
+# Characters each later step of normalisation changes, some it keeps, and the combining acute that
+# NFC composes with e (UAX #15) and keeps after ɛ, which has no precomposed form with it.
+_NORMALISE_MIX = "aeɛ ŋ\u0301\u00e9\t\u00a0\u200b\u200d\u0007\n“’'ʼ\u2011\u2212۴4ﬁ²يكك中\ud800-"
+_NEARLY_PLAIN = "aeɛ ŋ\u0301'’4"    # mostly characters no step changes: the cases that decide
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.lists(st.one_of(st.text(alphabet=st.sampled_from(_NORMALISE_MIX), max_size=10),
+                          st.text(alphabet=st.sampled_from(_NEARLY_PLAIN), max_size=10)), max_size=6),
+       st.sampled_from([Params(), Params(form="NFKC", quotes="keep", dashes="keep", digits="ascii", letter_variants="persian")]),
+       st.sampled_from(["keep", "modifier"]))
+def test_text_found_untouched_column_wise_is_what_normalising_returns_unchanged(texts, params, apostrophe):
+    from corpuskit.stages.normalise import mojibake, untouched
+    for text, quiet in zip(texts, untouched(texts, params, apostrophe), strict=True):
+        if quiet and mojibake(text)[0] == text:
+            assert normalise_text(text, params, apostrophe) == (text, []), text
+
+
+def test_most_plain_text_is_found_untouched():
+    from corpuskit.stages.normalise import untouched
+    assert untouched(["ŋɔ kamɛ́ sugagu.", "two  spaces", " lead", "a\u00a0b", "e\u0301", "“q”", ""], Params()) == \
+        [True, False, False, False, False, False, True]

@@ -15,6 +15,7 @@ import numpy as np
 import regex
 
 from ..casing import comparison_key
+from ..codepoints import CodePointTable, code_points, count_per_text
 from ..ledger import LedgerRow, remove_document
 from ..pii import PLACEHOLDER, scrub
 from ..scripts import unicode_scripts
@@ -64,48 +65,27 @@ def _repeat(n: int):
 # as it would character by character), and whole partitions are then counted with numpy.
 _CLASSES = (DIGIT, PUNCTUATION, SYMBOL, EMOJI, LETTER)
 _DIGIT_BIT, _PUNCT_BIT, _SYMBOL_BIT, _EMOJI_BIT, _LETTER_BIT, _IN_SCRIPT_BIT = (1 << i for i in range(6))
-_UNKNOWN = 255
-_TABLES: dict[str, np.ndarray] = {}   # target script -> class bits of every code point (255: not seen yet)
+_TABLES: dict[str, CodePointTable] = {}   # target script -> class bits of every code point
 
 
-def _class_bits(code_points: np.ndarray, target: str) -> np.ndarray:
+def _class_bits(points: np.ndarray, target: str) -> np.ndarray:
     """The class bits of each code point, for letters also whether they are in the target script."""
     table = _TABLES.get(target)
     if table is None:
-        table = _TABLES[target] = np.full(0x110000, _UNKNOWN, dtype=np.uint8)
-    new = np.unique(code_points[table[code_points] == _UNKNOWN])
-    if len(new):
         in_script = _in_script(target)
-        bits = []
-        for c in new.tolist():
-            ch = chr(c)
+
+        def classify(ch: str) -> int:
             b = sum(1 << i for i, pattern in enumerate(_CLASSES) if pattern.match(ch))
-            if b & _LETTER_BIT and in_script.match(ch):
-                b |= _IN_SCRIPT_BIT
-            bits.append(b)
-        table[new] = bits
-    return table[code_points]
+            return b | _IN_SCRIPT_BIT if b & _LETTER_BIT and in_script.match(ch) else b
+
+        table = _TABLES[target] = CodePointTable(classify, np.uint8, 255)
+    return table(points)
 
 
-def _code_points(texts: list[str]) -> tuple[np.ndarray, np.ndarray]:
-    """All texts' code points, end to end, and where each text starts (one more: the end)."""
-    starts = np.zeros(len(texts) + 1, dtype=np.int64)
-    np.cumsum([len(t) for t in texts], out=starts[1:])
-    joined = "".join(texts).encode("utf-32-le", "surrogatepass")
-    return np.frombuffer(joined, dtype="<u4"), starts
-
-
-def _counts(flags: np.ndarray, starts: np.ndarray) -> list[int]:
-    """How many of each text's positions are set."""
-    total = np.zeros(len(flags) + 1, dtype=np.int64)
-    np.cumsum(flags, out=total[1:])
-    return (total[starts[1:]] - total[starts[:-1]]).tolist()
-
-
-def _has_repeat(code_points: np.ndarray, starts: np.ndarray, repeat: int) -> list[bool]:
+def _has_repeat(points: np.ndarray, starts: np.ndarray, repeat: int) -> list[bool]:
     """Whether a text holds one character (not a line feed: '.' does not match it) more than
     ``repeat`` times in a row, as ``_repeat(repeat)`` would find."""
-    same = (code_points[1:] == code_points[:-1]) & (code_points[1:] != 10)
+    same = (points[1:] == points[:-1]) & (points[1:] != 10)
     inner = np.ones(len(same), dtype=bool)
     inner[starts[1:-1][(starts[1:-1] > 0) & (starts[1:-1] <= len(same))] - 1] = False   # pairs across two texts
     same &= inner
@@ -122,11 +102,11 @@ def segment_problems(texts: list[str], params: Params, target: str) -> list[tupl
     """The first filter each segment fails, as (reason, detail), or None; counted column-wise
     over all the texts at once."""
     bares = [PLACEHOLDER.sub("", t) if "<" in t else t for t in texts]
-    code_points, starts = _code_points(bares)
-    bits = _class_bits(code_points, target)
+    points, starts = code_points(bares)
+    bits = _class_bits(points, target)
     digits, punctuation, symbols, emoji, letters, in_script = (
-        _counts((bits & bit) != 0, starts) for bit in (_DIGIT_BIT, _PUNCT_BIT, _SYMBOL_BIT, _EMOJI_BIT, _LETTER_BIT, _IN_SCRIPT_BIT))
-    repeats = _has_repeat(code_points, starts, params.max_char_repeat)
+        count_per_text((bits & bit) != 0, starts) for bit in (_DIGIT_BIT, _PUNCT_BIT, _SYMBOL_BIT, _EMOJI_BIT, _LETTER_BIT, _IN_SCRIPT_BIT))
+    repeats = _has_repeat(points, starts, params.max_char_repeat)
     out: list[tuple[str, str] | None] = []
     for k, bare in enumerate(bares):
         n = len(bare)
