@@ -20,8 +20,10 @@ from collections import Counter
 from dataclasses import dataclass, field
 from functools import lru_cache
 
+import numpy as np
 import regex
 
+from ..codepoints import CodePointTable, any_per_text, code_points
 from ..ledger import LedgerRow
 from ..protect import outside
 from ..storage import stable_hash
@@ -308,15 +310,57 @@ def _normalise_once(text: str, params: Params, apostrophe: str, protected: tuple
     return text, steps
 
 
+_WHITESPACE_TO_CHANGE = regex.compile(r"[[\p{Zs}\t]--\x20]", regex.V1)   # a space of any other kind, a tab
+
+
+@lru_cache(maxsize=16)
+def _attention_table(params: Params, apostrophe: str) -> CodePointTable:
+    """Per code point, 1 if a step after ``mojibake`` could change a text holding it (a
+    character ``invisible`` removes, one NFKC folds, one the quote, apostrophe, dash, digit and
+    letter-variant tables map, a space other than U+0020), else 0; decided by the steps' own
+    patterns and tables."""
+    mapped = set()
+    if params.quotes == "ascii":
+        mapped.update(map(chr, QUOTES))
+    if apostrophe in APOSTROPHE_FORM:
+        mapped.update(APOSTROPHES)
+    if params.dashes == "hyphen":
+        mapped.update(map(chr, DASHES))
+    if params.letter_variants:
+        mapped.update(map(chr, LETTER_VARIANTS[params.letter_variants]))
+
+    def attention(ch: str) -> int:
+        return int(ch in mapped or bool(_INVISIBLE_OR_CONTROL.match(ch)) or bool(_WHITESPACE_TO_CHANGE.match(ch))
+                   or (params.digits == "ascii" and bool(_OTHER_DIGIT.match(ch)))
+                   or (params.form == "NFKC" and unicodedata.normalize("NFKC", ch) != unicodedata.normalize("NFC", ch)))
+
+    return CodePointTable(attention, np.int8)
+
+
+def untouched(texts: list[str], params: Params, apostrophe: str = "keep") -> list[bool]:
+    """Per text, whether every step after ``mojibake`` leaves it as it is: it holds no character
+    any of them changes (see ``_attention_table``), is already in the normalisation form, and has
+    no space at either end or two in a row.  Found for all the texts at once (numpy)."""
+    points, starts = code_points(texts)
+    flagged = any_per_text(_attention_table(params, apostrophe)(points) != 0, starts).tolist()
+    form = params.form
+    return [not flag and unicodedata.is_normalized(form, t) and t[:1] != " " and t[-1:] != " " and "  " not in t
+            for t, flag in zip(texts, flagged)]
+
+
 def apply(docs: list[dict], params: Params, ctx: dict | None):
     ctx = ctx or {"apostrophe": "keep", "protected": []}
     apostrophe, protected = ctx["apostrophe"], tuple(ctx["protected"])
     rows: list[LedgerRow] = []
     figures = NormaliseFigures()
+    quiet = iter(untouched([seg for doc in docs for seg in doc["segments"]], params, apostrophe))
     for doc in docs:
         keep = []
         for i, seg in enumerate(doc["segments"]):
-            new, steps = normalise_text(seg, params, apostrophe, protected, figures.nfkc_folds)
+            if next(quiet) and (not params.repair_mojibake or mojibake(seg)[0] == seg):
+                new, steps = seg, []          # most text: no step would change it
+            else:
+                new, steps = normalise_text(seg, params, apostrophe, protected, figures.nfkc_folds)
             if steps and steps != ["whitespace"]:
                 rows.append(LedgerRow("normalise", "segment", "rewritten", doc["id"], doc["seg_index"][i], 0,
                                       "normalised", ",".join(steps), None, None))
