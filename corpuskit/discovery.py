@@ -35,7 +35,7 @@ from pathlib import Path
 import regex
 
 from .casing import fold_case
-from .words import NO_SPACE, words as split_words
+from .words import needs_dictionary, words as split_words
 from .errors import DataError, RecipeError
 from .variants_table import TABLE_HEADER, load_table, restore_cell, tokens
 
@@ -175,7 +175,7 @@ class TypeStats:
 
 
 def words_of(text: str, language: str = "") -> list[str]:
-    if NO_SPACE.search(text):    # scripts without spaces between words: a dictionary segmenter
+    if needs_dictionary(text):    # scripts without spaces between words: a dictionary segmenter
         return [fold_case(w, language) for w in split_words(text, language)]
     return [fold_case(t, language) for t in tokens(text) if _WORDISH.search(t) and not t.isdigit()]
 

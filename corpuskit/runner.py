@@ -295,7 +295,7 @@ class Runner:
         units = self.ingest_units()
         todo = [u for u in units if not self.cache.has_blob("ingest", f"{u[2]}.unit.json")]
         if todo and not execute:
-            raise RecipeError("sources changed since the last run; run 'corpuskit run RECIPE --until ingest' first.")
+            raise RecipeError("the sources, or the code that reads them, changed since the last run; run 'corpuskit run RECIPE --until ingest' first.")
         args = [(str(self.cache.root), src, files, key, self.recipe.corpus.partition_docs) for src, files, key in todo]
         with self.progress("ingest", len(args)) as tick:
             for _, marker in self.engine.imap(run_ingest_task, args):

@@ -13,11 +13,19 @@ from functools import lru_cache
 
 import regex
 
-__all__ = ["words", "words_of", "NO_SPACE"]
+__all__ = ["words", "words_of", "NO_SPACE", "needs_dictionary"]
 
 WORD = regex.compile(r"[\p{L}\p{M}\p{Lm}\N{ZERO WIDTH NON-JOINER}\N{ZERO WIDTH JOINER}ʼ'’-]+")
 NO_SPACE = regex.compile(r"[\p{Thai}\p{Lao}\p{Khmer}\p{Myanmar}\p{Han}\p{Hiragana}\p{Katakana}\p{Tibetan}]")
 _WORDISH = regex.compile(r"[\p{L}\p{M}\p{N}]")
+NO_SPACE_FROM = "\u0e01"   # the first code point NO_SPACE matches (Thai ko kai; a test checks it)
+
+
+def needs_dictionary(text: str) -> bool:
+    """Whether ``text`` holds a character of a script written without spaces between words
+    (``NO_SPACE``); text whose largest character comes before all of them is answered without
+    the regular expression (about three times faster)."""
+    return not text.isascii() and max(text) >= NO_SPACE_FROM and NO_SPACE.search(text) is not None
 
 
 @lru_cache(maxsize=8)
@@ -44,7 +52,7 @@ def words(text: str, language: str = "") -> list[str]:
     >>> words("ba’a ŋɔ-bɛ, kamɛ!"), words("สวัสดีครับ", "th")
     (['ba’a', 'ŋɔ-bɛ', 'kamɛ'], ['สวัสดี', 'ครับ'])
     """
-    if NO_SPACE.search(text):
+    if needs_dictionary(text):
         return _dictionary_words(text, language)
     return [w for w in WORD.findall(text) if w.strip("-'’ʼ\u200c\u200d")]
 
@@ -57,6 +65,6 @@ def words_of(texts: list[str], language: str = "") -> list[str]:
     ['ba’a', 'ŋɔ-bɛ', 'kamɛ']
     """
     joined = "\n".join(texts)
-    if NO_SPACE.search(joined):
+    if needs_dictionary(joined):
         return [w for t in texts for w in words(t, language)]
     return [w for w in WORD.findall(joined) if w.strip("-'’ʼ\u200c\u200d")]

@@ -128,6 +128,17 @@ def test_words_of_lines_written_without_spaces(language):
     assert abs(found / 2400 - 1) <= 0.10
 
 
+def test_the_quick_test_for_scripts_without_spaces_starts_at_their_first_code_point():
+    """Scripts per code point from the Unicode Character Database, as the regex module carries it:
+    no character before NO_SPACE_FROM belongs to a script written without spaces, so text whose
+    largest character comes before it needs no dictionary."""
+    from corpuskit.words import NO_SPACE, NO_SPACE_FROM, needs_dictionary
+    first = next(c for c in range(0x110000) if NO_SPACE.match(chr(c)))
+    assert chr(first) == NO_SPACE_FROM
+    for text in ("kamɛ ŋɔ", "abc", "Σς\u0e00", "ab\u0e01", "ŋ中", "😀 ŋ", ""):
+        assert needs_dictionary(text) == bool(NO_SPACE.search(text)), text
+
+
 def test_balance_counts_thai_words_not_space_separated_chunks():
     from corpuskit.reports.balance import Accumulator
     acc = Accumulator("th")
@@ -145,6 +156,39 @@ def test_inventory_skips_placeholders_and_cuts_examples_between_graphemes():
     assert not any(ch in "PHONE" for (_, _, _, ch) in inv.chars)
     for example in inv.examples.values():
         assert unicodedata.category(example[0]) != "Mn" and example[0] != "\u09cd"
+
+
+def _inventory_one_by_one(docs):
+    """The inventory as it was counted before, document by document and character by character."""
+    from collections import Counter
+    from corpuskit.pii import PLACEHOLDER
+    from corpuskit.reports.balance import _context
+    from corpuskit.scripts import char_script
+    chars, examples = Counter(), {}
+    for doc, public in docs:
+        segments = [PLACEHOLDER.sub(" ", s) if "<" in s else s for s in doc["segments"]]
+        for ch, n in Counter("\n".join(segments)).items():
+            if ch.isspace():
+                continue
+            key = (doc["source"], doc.get("dialect") or "unknown", char_script(ch), ch)
+            chars[key] += n
+            if key not in examples:
+                seg = next(s for s in segments if ch in s)
+                examples[key] = _context(seg, seg.index(ch)) if public else "(restricted source)"
+    return chars, examples
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.tuples(st.lists(st.text(alphabet=st.sampled_from("ab ŋɛ\u0301\tক্ষ中😀<PHONE>\u2028\ud800"), max_size=12),
+                                   max_size=4),
+                          st.sampled_from(["web", "chat"]), st.sampled_from([None, "coast", "hill"]), st.booleans()),
+                max_size=8))
+def test_inventory_of_many_documents_equals_the_inventory_of_each_in_turn(items):
+    from corpuskit.reports.balance import ScriptInventory
+    docs = [({"segments": segs, "source": src, "dialect": dia}, public) for segs, src, dia, public in items]
+    inv = ScriptInventory()
+    inv.add_many(docs)
+    assert (inv.chars, inv.examples) == _inventory_one_by_one(docs)
 
 
 # -- subtitles in documents of a few minutes -----------------------------------------------------------

@@ -9,6 +9,7 @@ import base64
 import bisect
 import html
 import io
+import itertools
 from collections import Counter, defaultdict
 from pathlib import Path
 
@@ -132,19 +133,38 @@ class ScriptInventory:
     def add(self, doc: dict, examples: bool = True) -> None:
         """Count the document's characters; with ``examples`` False (a source that may not be
         redistributed) its text gives no example contexts."""
+        self.add_many([(doc, examples)])
+
+    def add_many(self, docs: list[tuple[dict, bool]]) -> None:
+        """``add`` for each (document, examples) in order, counted per source and dialect over all
+        their text at once (numpy over code points); a character met for the first time takes its
+        example from the first of these documents that holds it."""
+        import numpy as np
         from ..pii import PLACEHOLDER
         from ..scripts import char_script
-        source, dialect = doc["source"], doc.get("dialect") or "unknown"
-        # <PHONE> and its kin are the pipeline's, not the text's
-        segments = [PLACEHOLDER.sub(" ", s) if "<" in s else s for s in doc["segments"]]
-        for ch, n in Counter("\n".join(segments)).items():   # counted in C; each distinct character once
-            if ch.isspace():
+        groups: dict[tuple[str, str], list[tuple[list[str], bool]]] = defaultdict(list)
+        for doc, examples in docs:
+            # <PHONE> and its kin are the pipeline's, not the text's
+            segments = [PLACEHOLDER.sub(" ", s) if "<" in s else s for s in doc["segments"]]
+            groups[(doc["source"], doc.get("dialect") or "unknown")].append((segments, examples))
+        for (source, dialect), members in groups.items():
+            texts = ["\n".join(segments) for segments, _ in members]
+            joined = "\n".join(texts)
+            if not joined:
                 continue
-            key = (source, dialect, char_script(ch), ch)
-            self.chars[key] += n
-            if key not in self.examples:             # the context of its first occurrence
-                seg = next(s for s in segments if ch in s)
-                self.examples[key] = _context(seg, seg.index(ch)) if examples else "(restricted source)"
+            starts = list(itertools.accumulate((len(t) + 1 for t in texts), initial=0))
+            code_points = np.frombuffer(joined.encode("utf-32-le", "surrogatepass"), dtype="<u4")
+            counts = np.bincount(code_points)
+            for cp in np.flatnonzero(counts).tolist():
+                ch = chr(cp)
+                if ch.isspace():
+                    continue
+                key = (source, dialect, char_script(ch), ch)
+                self.chars[key] += int(counts[cp])
+                if key not in self.examples:             # the context of its first occurrence
+                    segments, examples = members[bisect.bisect_right(starts, joined.index(ch)) - 1]
+                    seg = next(s for s in segments if ch in s)
+                    self.examples[key] = _context(seg, seg.index(ch)) if examples else "(restricted source)"
 
     def state(self) -> list:
         return [[*key, n, self.examples[key]] for key, n in sorted(self.chars.items())]

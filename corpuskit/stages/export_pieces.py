@@ -109,6 +109,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
     people: dict[str, str] = {}
     restricted_texts: set[str] = set()
     public_digests: set[int] = set()
+    inventory_docs: list[tuple[dict, bool]] = []
     for d in docs:
         team, keeps_names = naming.get(d["source"], (None, False))
         if secret and not keeps_names:
@@ -132,7 +133,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
         by_source[d["source"]]["documents kept"] += 1
         by_source[d["source"]]["segments kept"] += len(d["segments"])
         stats.add(d)
-        inventory.add(d, examples=where == "public")
+        inventory_docs.append((d, where == "public"))
         if d.get("seg_score"):
             review.extend((d["id"], s, sc) for s, sc in zip(d["segments"], d["seg_score"]) if sc is not None)
         targets = [where] if where == "restricted" else [where, d["split"] or "train"]
@@ -153,6 +154,7 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
             priority = line_priority(d["id"], i) if groups else 0
             for g in groups:
                 samples[g].append((priority, seg))
+    inventory.add_many(inventory_docs)
     sections = PieceFile()
     files = {}
     for target, recs in records.items():
