@@ -37,15 +37,17 @@ def s_curve(s: float, bands: int, rows: int) -> float:
     return 1.0 - (1.0 - s ** rows) ** bands
 
 
-def band_keys(sigs: np.ndarray, bands: int, rows: int) -> np.ndarray:
-    """A 64-bit key per (document, band) from the band's hash values."""
-    keys = np.zeros((sigs.shape[0], bands), dtype=np.uint64)
+def band_keys(sigs: np.ndarray, bands: int, rows: int, only: range | None = None) -> np.ndarray:
+    """A 64-bit key per (document, band) from the band's hash values; with ``only``, the
+    columns of those bands alone."""
+    only = range(bands) if only is None else only
+    keys = np.zeros((sigs.shape[0], len(only)), dtype=np.uint64)
     with np.errstate(over="ignore"):
-        for band in range(bands):
+        for j, band in enumerate(only):
             k = np.full(sigs.shape[0], np.uint64(band), dtype=np.uint64)
             for c in range(band * rows, (band + 1) * rows):
                 k = fmix64(k * np.uint64(0x100000001B3) ^ sigs[:, c].astype(np.uint64))
-            keys[:, band] = k
+            keys[:, j] = k
     return keys
 
 

@@ -2,10 +2,11 @@
 import gzip
 
 import numpy as np
-from hypothesis import given, settings, strategies as st
+from hypothesis import example, given, settings, strategies as st
 
 from corpuskit.reports.balance import Accumulator
-from corpuskit.stages.export_pieces import EMPTY_GZIP, SampleMerger, join_sections, line_priority, shard_groups
+from corpuskit.stages.export_pieces import (EMPTY_GZIP, SampleMerger, join_sections, line_priority, pack_texts,
+                                            shard_groups, unpack_texts)
 
 
 def _sample(pieces: list[list[tuple[str, int, str]]], k: int) -> list[str]:
@@ -17,7 +18,7 @@ def _sample(pieces: list[list[tuple[str, int, str]]], k: int) -> list[str]:
         pr = np.array([p for p, _ in chosen], dtype="<u8")
         groups = {"train": len(chosen)} if chosen else {}
         merger.add_priorities(groups, pr)
-        prepared.append((groups, pr, [f'"{t}"' for _, t in chosen]))
+        prepared.append((groups, pr, unpack_texts(*pack_texts([t for _, t in chosen]))))
     cutoffs = merger.cutoffs()
     into: dict = {"train": []}
     for groups, pr, lines in prepared:
@@ -39,6 +40,15 @@ def test_bottom_k_sample_does_not_depend_on_partitioning_or_order(items, k, n_pi
     pieces = [shuffled[j::n_pieces] for j in range(n_pieces)]
     assert _sample(pieces, k) == expected
     assert _sample([items], k) == expected
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.text(st.characters(min_codepoint=0, max_codepoint=0x10FFFF)), max_size=20))
+@example(["a\ud800b", "", "\udfff", "x\ny\u2028z\r"])
+def test_packed_texts_come_back_whole(texts):
+    """Any text survives, with line breaks of every kind (LF, CR, U+2028, U+0085) and lone
+    surrogates; empty texts keep their place."""
+    assert unpack_texts(*pack_texts(texts)) == texts
 
 
 def test_shard_groups_hold_whole_pieces():

@@ -220,6 +220,30 @@ def test_precision_holds_and_recall_beats_a_plain_model_on_cldr_names(cldr, targ
     assert r["context"]["recall"] > r["alone"]["recall"]          # documents of 8 lines of one locale
 
 
+@pytest.mark.external
+def test_scores_asked_only_above_a_floor_are_the_full_scores(cldr, tmp_path):
+    """Source: CLDR locale data shipped with Babel (30 locales, so 30 labels each adding
+    fastText's 1e-5 smoothing to its probability).  Where a floor is given, the fold models stop
+    early on lines that cannot reach it: every score that reaches the floor must equal the full
+    ensemble's, and every line the full ensemble puts below the floor must stay below it."""
+    seeds, tests = cldr.split_data()
+    folds = [tmp_path / f"fold{k}.bin" for k in range(5)]
+    langid.cross_validate(seeds, langid.Params(), "uk", tmp_path, keep=folds)
+    models = langid.load_model([str(p) for p in folds])
+    lines = [x for c in cldr.LOCALES for x in tests[c]] + [" ".join(tests["uk"][:3] + tests["ru"][:3])]
+    full, full_best = langid.target_scores(models, lines, "uk")
+    stopped = 0
+    for floor in (0.2, 0.5, 0.9, 0.99):
+        some, best = langid.target_scores(models, lines, "uk", floor=floor)
+        reach = full >= floor
+        assert reach.any() and (~reach).any()
+        assert np.array_equal(some[reach], full[reach])                      # bit for bit
+        assert (some[~reach] < floor).all()
+        assert [b for b, r in zip(best, reach) if r] == [b for b, r in zip(full_best, reach) if r]
+        stopped += int((some[~reach] == 0.0).sum())
+    assert stopped > len(lines)            # the point of it: most lines below a floor are cut short
+
+
 def test_the_model_is_retrained_when_a_training_setting_changes(tmp_path):
     recipe = load_recipe(copy_demo(tmp_path))
     params = recipe.stages["langid"]

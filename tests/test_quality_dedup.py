@@ -224,7 +224,7 @@ def _datasketch_candidates(sigs, bands, rows):
     return np.array(sorted(pairs), dtype=np.int64).reshape(-1, 2)
 
 
-def test_sorted_band_keys_give_the_candidates_of_datasketchs_index():
+def test_sorted_band_keys_give_the_candidates_of_datasketchs_index(monkeypatch):
     from corpuskit.stages import dedup
     rng = np.random.default_rng(3)
     base = rng.integers(0, 2**32, (300, 128), dtype=np.uint64).astype(np.uint32)
@@ -241,11 +241,17 @@ def test_sorted_band_keys_give_the_candidates_of_datasketchs_index():
             import pandas as pd
             return pd.concat([func(part) for _, part in rows.groupby(rows[key] % 2)])
     assert np.array_equal(dedup.candidate_pairs(sigs, eligible, bands, rows, TwoPartitions()), by_sorting)
-    # Verifying band by band (large sets) keeps exactly the verified candidates of the whole set.
+    # Verifying band by band (large sets; here made to apply to this small one) keeps exactly the
+    # verified candidates of the whole set, each once, though a near copy shares many bands.
     data = dedup.SignatureSet.from_arrays(sigs)
     params = dedup.Params(threshold=0.5)
     whole = dedup.verify_pairs(data, with_index, 0.5)
-    banded, _ = dedup.near_duplicate_pairs(data, 0.5, params)
+    assert list(dedup.near_duplicate_pairs(data, 0.5, params)[0]) == list(zip(*(c.tolist() for c in whole)))
+    checked = []
+    monkeypatch.setattr(dedup, "BANDWISE_ABOVE", 0)
+    banded, _ = dedup.near_duplicate_pairs(data, 0.5, params,
+                                           verify=lambda d, p, t: checked.append(len(p)) or dedup.verify_pairs(d, p, t))
+    assert len(checked) == bands and sum(checked) < len(with_index) * 2
     assert len(whole[0]) > 100 and list(banded) == list(zip(*(c.tolist() for c in whole)))
 
 
@@ -276,11 +282,32 @@ def test_signature_set_reads_partition_files_like_one_array(tmp_path):
     data = dedup.SignatureSet(32, sig_files, fact_files, ["a", "b", "c", "d"])
     rows = np.array([23, 0, 8, 8, 19, 6])
     assert len(data) == 24 and np.array_equal(data.take(rows), sigs[rows])
+    data._files.limit = 2                                       # files closed and opened again
+    assert np.array_equal(data.take(np.arange(24)[::-1]), sigs[::-1]) and np.array_equal(data.take(rows), sigs[rows])
     assert data.ids(rows) == [facts[r][0] for r in rows]
     assert [data.partition_of(r) for r in (0, 6, 7, 18, 19, 23)] == ["a", "a", "c", "c", "d", "d"]
     every = np.arange(24)
     assert np.array_equal(data.band_keys(every, 4, 8), lsh.band_keys(sigs, 4, 8))
+    assert np.array_equal(data.band_keys(every, 4, 8, only=range(1, 3)), lsh.band_keys(sigs, 4, 8)[:, 1:3])
     assert [data.source_names[c] for c in data.source] == [f[1] for f in facts]
+
+
+def test_n_gram_sets_read_from_partition_files_equal_the_sets_in_memory(tmp_path):
+    """Rows asked for in any order, again and again, with the open files and the cache of
+    distinct sets made small enough to be dropped many times over."""
+    from corpuskit.stages import dedup
+    rng = np.random.default_rng(4)
+    sizes, files, offsets, sets = [3, 0, 5, 4], [], [], []
+    for p, n in enumerate(sizes):
+        rows = [rng.integers(0, 50, rng.integers(0, 30)).astype(np.uint32) for _ in range(n)]
+        np.save(tmp_path / f"p{p}.shingles.npy", np.concatenate(rows + [np.zeros(0, np.uint32)]).astype(np.uint32))
+        files.append(tmp_path / f"p{p}.shingles.npy")
+        offsets.append(np.concatenate([[0], np.cumsum([len(r) for r in rows])]).astype(np.int64))
+        sets += rows
+    from_files = dedup.ShingleSets(files, offsets, np.concatenate([[0], np.cumsum(sizes)]))
+    from_files.files.limit, from_files.CACHE_VALUES = 2, 40
+    asked = rng.integers(0, len(sets), 200).tolist()
+    assert all(np.array_equal(from_files.get(r), np.unique(sets[r])) for r in asked)
 
 
 def test_boilerplate_segments_match_a_direct_count(tmp_path):

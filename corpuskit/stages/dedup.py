@@ -19,9 +19,12 @@ from __future__ import annotations
 
 import hashlib
 import io
+import mmap
+import os
 from collections import defaultdict
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -54,34 +57,63 @@ class Params(Checked):
 
 # -- shingle sets, verification, signatures per partition ----------------------------------
 
+class NpyFiles:
+    """Open ``.npy`` files of uint32 values, by number: (file, offset of the data, shape), the
+    header read once; at most ``limit`` are held open (all are closed when it is reached)."""
+
+    def __init__(self, paths: list[Path], ndim: int, limit: int = 64):
+        self.paths, self.ndim, self.limit = paths, ndim, limit
+        self._open: dict[int, tuple[Any, int, tuple]] = {}
+        self._layouts: dict[int, tuple[int, tuple]] = {}
+
+    def get(self, p: int) -> tuple[Any, int, tuple]:
+        if p not in self._open:
+            if len(self._open) >= self.limit:
+                self._open.clear()      # the files close as they are dropped
+            f = open(self.paths[p], "rb", buffering=0)
+            if p not in self._layouts:
+                version = np.lib.format.read_magic(f)
+                read_header = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
+                shape, _, dtype = read_header(f)
+                if dtype != np.dtype("<u4") or len(shape) != self.ndim:
+                    raise ValueError(f"{self.paths[p]}: not an array of {self.ndim} dimension(s) of uint32")
+                self._layouts[p] = (f.tell(), shape)
+            self._open[p] = (f, *self._layouts[p])
+        return self._open[p]
+
+
 class ShingleSets:
     """Each document's n-gram hashes, read from the partitions' files on demand."""
 
+    CACHE_VALUES = 8_000_000   # distinct n-gram hashes kept for rows asked for again (32 MB)
+
     def __init__(self, files: list[Path] | None = None, offsets: list[np.ndarray] | None = None,
                  part_offsets: np.ndarray | None = None, sets: list[np.ndarray] | None = None):
-        self.files, self.offsets, self.part_offsets, self._sets = files or [], offsets or [], part_offsets, sets
-        self._cache: dict[int, np.ndarray] = {}
+        self.files, self.offsets, self.part_offsets, self._sets = NpyFiles(files or [], 1), offsets or [], part_offsets, sets
         self._distinct: dict[int, np.ndarray] = {}
+        self._held = 0
 
     def get(self, row: int) -> np.ndarray:
         """Row ``row``'s distinct n-gram hashes, sorted (only candidates are ever asked for)."""
-        if row not in self._distinct:
-            if len(self._distinct) > 100_000:
+        got = self._distinct.get(row)
+        if got is None:
+            if self._held > self.CACHE_VALUES:
                 self._distinct.clear()
-            self._distinct[row] = np.unique(self._raw(row))
-        return self._distinct[row]
+                self._held = 0
+            got = self._distinct[row] = np.unique(self._raw(row))
+            self._held += len(got)
+        return got
 
     def _raw(self, row: int) -> np.ndarray:
+        """The row's n-gram hashes as stored: one positioned read of its partition's file (a
+        numpy memory map per read cost 0.2 ms of set-up, and rows are asked for in no order)."""
         if self._sets is not None:
             return self._sets[row]
         p = int(np.searchsorted(self.part_offsets, row, side="right") - 1)
-        if p not in self._cache:
-            if len(self._cache) > 64:
-                self._cache.clear()
-            self._cache[p] = np.load(self.files[p], mmap_mode="r")
         local = row - int(self.part_offsets[p])
-        start, stop = self.offsets[p][local], self.offsets[p][local + 1]
-        return np.asarray(self._cache[p][start:stop])
+        start, stop = int(self.offsets[p][local]), int(self.offsets[p][local + 1])
+        f, data_at, _ = self.files.get(p)
+        return np.frombuffer(os.pread(f.fileno(), 4 * (stop - start), data_at + 4 * start), dtype="<u4")
 
 
 # Candidates whose estimated Jaccard is this far below the threshold are not verified: at 128
@@ -215,7 +247,7 @@ class SignatureSet:
         self.num_perm = num_perm
         self.sig_files, self.fact_files, self.part_keys = sig_files or [], fact_files or [], part_keys or []
         self._in_memory = sigs
-        self._layouts: dict[int, tuple[int, tuple[int, int]]] = {}
+        self._files = NpyFiles(self.sig_files, 2)
         cols = defaultdict(list)
         self.shingle_offsets: list = []
         sizes, seg_base = [], 0
@@ -278,24 +310,14 @@ class SignatureSet:
         out = np.empty((len(rows), self.num_perm), dtype=np.uint32)
         for p, sel, local in self._by_partition(rows):
             # Mapped for this read only: pages left mapped would count in the process's
-            # resident memory until the end of the stage.
-            offset, shape = self._layout(p)
-            mapped = np.memmap(self.sig_files[p], dtype=np.uint32, mode="r", offset=offset, shape=shape)
-            out[sel] = mapped[local]
-            del mapped
+            # resident memory until the end of the stage.  (A plain mmap: numpy's memmap spent
+            # 0.1 ms resolving the path each time.)
+            f, offset, shape = self._files.get(p)
+            with mmap.mmap(f.fileno(), 0, access=mmap.ACCESS_READ) as mapped:
+                view = np.frombuffer(mapped, dtype="<u4", count=shape[0] * shape[1], offset=offset).reshape(shape)
+                out[sel] = view[local]
+                del view
         return out
-
-    def _layout(self, p: int) -> tuple[int, tuple[int, int]]:
-        """(data offset, shape) of partition p's .npy file, read from its header once."""
-        if p not in self._layouts:
-            with open(self.sig_files[p], "rb") as f:
-                version = np.lib.format.read_magic(f)
-                read_header = np.lib.format.read_array_header_1_0 if version == (1, 0) else np.lib.format.read_array_header_2_0
-                shape, _, dtype = read_header(f)
-                if dtype != np.dtype(np.uint32) or len(shape) != 2:
-                    raise ValueError(f"{self.sig_files[p]}: not a signature file")
-                self._layouts[p] = (f.tell(), shape)
-        return self._layouts[p]
 
     def ids(self, rows) -> list[str]:
         """Document ids of the given rows."""
@@ -313,13 +335,13 @@ class SignatureSet:
     def partition_of(self, row: int) -> str:
         return self.part_keys[int(self.part_index(np.array([row]))[0])]
 
-    def band_keys(self, rows: np.ndarray, bands: int, rows_per_band: int) -> np.ndarray:
+    def band_keys(self, rows: np.ndarray, bands: int, rows_per_band: int, only: range | None = None) -> np.ndarray:
         """``band_keys`` of the given (sorted) rows, reading one partition's signatures at a time."""
         if self._in_memory is not None:
-            return band_keys(self._in_memory[rows], bands, rows_per_band)
-        keys = np.zeros((len(rows), bands), dtype=np.uint64)
+            return band_keys(self._in_memory[rows], bands, rows_per_band, only)
+        keys = np.zeros((len(rows), bands if only is None else len(only)), dtype=np.uint64)
         for p, sel, local in self._by_partition(np.asarray(rows, dtype=np.int64)):
-            keys[sel] = band_keys(np.load(self.sig_files[p])[local], bands, rows_per_band)
+            keys[sel] = band_keys(np.load(self.sig_files[p])[local], bands, rows_per_band, only)
         return keys
 
 
@@ -386,6 +408,9 @@ class NearPairs:
         return zip(self.left.tolist(), self.right.tolist(), self.similarity.tolist())
 
 
+BANDS_AT_ONCE = 8   # band keys held at once when verifying band by band (8 bytes a document each)
+
+
 def near_duplicate_pairs(data, threshold: float, params: Params, engine=None,
                          alive: np.ndarray | None = None, verify=None) -> tuple[NearPairs, tuple[int, int]]:
     """Candidate pairs that ``verify`` accepts (default: estimated Jaccard reaches ``threshold``;
@@ -398,9 +423,17 @@ def near_duplicate_pairs(data, threshold: float, params: Params, engine=None,
     bands, rows = lsh_params(threshold, params.num_perm)
     idx = np.flatnonzero(eligible)
     if len(idx) > BANDWISE_ABOVE and not (engine is not None and hasattr(engine, "frame_map")):
-        # Band by band: only verified pairs are kept, never the whole candidate set.
-        keys = data.band_keys(idx, bands, rows)
-        found = [verify(data, band_pairs(keys[:, band], idx), threshold) for band in range(bands)]
+        # Band by band: only verified pairs are kept, never the whole candidate set (nor every
+        # band's keys: they are computed BANDS_AT_ONCE at a time).  A near duplicate shares many
+        # bands: a pair already accepted is not verified again.
+        found, accepted = [], np.zeros(0, dtype=np.int64)
+        for band in range(bands):
+            if band % BANDS_AT_ONCE == 0:
+                keys = data.band_keys(idx, bands, rows, only=range(band, min(bands, band + BANDS_AT_ONCE)))
+            pairs = band_pairs(keys[:, band % BANDS_AT_ONCE], idx)
+            pairs = pairs[~np.isin(pairs[:, 0] * len(data) + pairs[:, 1], accepted)]
+            found.append(verify(data, pairs, threshold))
+            accepted = np.union1d(accepted, found[-1][0] * len(data) + found[-1][1])
         left, right, sim = (np.concatenate(col) for col in zip(*found))
         codes = left * len(data) + right
         order = np.argsort(codes, kind="stable")

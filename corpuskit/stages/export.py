@@ -29,7 +29,7 @@ from .. import tokenizer as tok
 from .. import transliterate as translit
 from .export_pieces import (EMPTY_GZIP, VERSION as PIECES_VERSION, LedgerSettings, LedgerSummary, PieceSettings, ReviewPool,
                       SampleMerger, destination, document_piece_task, join_sections, ledger_piece_task, read_section,
-                      shard_groups)
+                      shard_groups, unpack_texts)
 from . import langid
 from .contract import Services
 from .split import SPLITS
@@ -510,9 +510,9 @@ def _sample_lines(cache, names: list[str], summaries: list[dict], samples: Sampl
     for name, summary in zip(names, summaries):
         if not summary["sample_groups"]:
             continue
-        lines = read_section(cache.blob_path("export", f"{name}.bin"), summary["sections"]["sample.jsonl"])
-        # JSON lines: split at LF only (U+2028 and U+2029 are not line breaks here)
-        SampleMerger.read(lines.decode("utf-8").split("\n")[:-1], summary["sample_groups"], _priorities(cache, summary),
+        path, sections = cache.blob_path("export", f"{name}.bin"), summary["sections"]
+        texts = unpack_texts(read_section(path, sections["sample.lengths"]), read_section(path, sections["sample.text"]))
+        SampleMerger.read(texts, summary["sample_groups"], _priorities(cache, summary),
                           cutoffs, chosen)
     return {g: [text for _, text in sorted(items)] for g, items in chosen.items()}
 

@@ -29,10 +29,9 @@ from ..storage import Cache, atomic_open, atomic_write_bytes, digest64
 from .split import SPLITS
 
 __all__ = ["PieceSettings", "LedgerSettings", "document_piece_task", "ledger_piece_task", "LedgerSummary",
-           "ReviewPool", "SampleMerger", "shard_groups", "join_sections", "read_section", "DESTINATIONS"]
+           "ReviewPool", "SampleMerger", "shard_groups", "join_sections", "read_section", "pack_texts", "unpack_texts"]
 
-VERSION = "4"
-DESTINATIONS = ("public", "restricted") + SPLITS
+VERSION = "5"
 STAGE = "export"
 
 
@@ -167,9 +166,11 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
         chosen = heapq.nsmallest(limit, samples[g])
         sample_groups[g] = len(chosen)
         priorities.extend(p for p, _ in chosen)
-        texts.extend(json.dumps(t, ensure_ascii=False) for _, t in chosen)
+        texts.extend(t for _, t in chosen)
     sections.add("sample.priorities", np.array(priorities, dtype="<u8").tobytes())
-    sections.add("sample.jsonl", "".join(t + "\n" for t in texts).encode("utf-8"))
+    lengths, joined = pack_texts(texts)
+    sections.add("sample.lengths", lengths)
+    sections.add("sample.text", joined)
     sections.add("public.digests", np.array(sorted(public_digests), dtype="<u8").tobytes())
     ledger_rows = [r.as_dict() for r in export_rows]
     ledger = summarise_ledger_rows(ledger_rows, settings.ledger)
@@ -183,6 +184,20 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
                "people": dict(sorted(people.items())), "restricted_texts": sorted(restricted_texts)}
     cache.put_json(STAGE, f"{name}.json", summary)
     return name
+
+
+def pack_texts(texts: list[str]) -> tuple[bytes, bytes]:
+    """Texts as their lengths (code points, little-endian uint32) and their UTF-8 concatenation:
+    any character may occur in a text, line breaks included (lone surrogates pass through)."""
+    return (np.array([len(t) for t in texts], dtype="<u4").tobytes(),
+            "".join(texts).encode("utf-8", "surrogatepass"))
+
+
+def unpack_texts(lengths: bytes, joined: bytes) -> list[str]:
+    """The texts ``pack_texts`` packed."""
+    text = joined.decode("utf-8", "surrogatepass")
+    ends = np.cumsum(np.frombuffer(lengths, dtype="<u4"), dtype=np.int64).tolist()
+    return [text[start:end] for start, end in zip([0] + ends, ends)]
 
 
 class PieceFile:
@@ -253,13 +268,13 @@ class SampleMerger:
         return out
 
     @staticmethod
-    def read(lines: list[str], groups: dict, priorities: np.ndarray, cutoffs: dict, into: dict) -> None:
+    def read(texts: list[str], groups: dict, priorities: np.ndarray, cutoffs: dict, into: dict) -> None:
         """Add this piece's sampled lines (priority, text) per group to ``into``."""
         start = 0
         for g, n in groups.items():
             cutoff = cutoffs.get(g)
             take = 0 if cutoff is None else int(np.searchsorted(priorities[start:start + n], np.uint64(cutoff), side="right"))
-            into[g].extend((int(priorities[start + j]), json.loads(lines[start + j])) for j in range(take))
+            into[g].extend(zip(priorities[start:start + take].tolist(), texts[start:start + take]))
             start += n
 
 

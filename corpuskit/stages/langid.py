@@ -200,13 +200,17 @@ def _label_count(model) -> int:
     return _labels(model, "")[0]
 
 
-def target_scores(model, lines: list[str], language: str) -> tuple[np.ndarray, list[str]]:
+def target_scores(model, lines: list[str], language: str, floor: float | None = None) -> tuple[np.ndarray, list[str]]:
     """P(target language) per line and the most probable label; for a list of models (the fold
-    models), the mean probability and the label with the highest mean."""
+    models), the mean probability and the label with the highest mean.
+
+    With ``floor``, only scores that reach it are needed: a line that the first fold models
+    already place below it, whatever the others say, is not scored by the others; it gets the
+    score 0.0 and the label 'und'.  Every score that reaches the floor is exactly the full one."""
     if isinstance(model, (list, tuple)):
         if len(model) == 1:
             return target_scores(model[0], lines, language)
-        return _ensemble_scores(model, lines, language)
+        return _ensemble_scores(model, lines, language, floor)
     n, targets = _labels(model, language)
     fasttext_predict = model.f.predict
     out, best = [], []
@@ -217,23 +221,46 @@ def target_scores(model, lines: list[str], language: str) -> tuple[np.ndarray, l
     return np.minimum(np.array(out, dtype=float), 1.0), best
 
 
-def _ensemble_scores(models: list, lines: list[str], language: str) -> tuple[np.ndarray, list[str]]:
+def _ensemble_scores(models: list, lines: list[str], language: str,
+                     floor: float | None = None) -> tuple[np.ndarray, list[str]]:
     # Each distinct line is prepared once and predicted once per model (repeated lines are common:
     # greetings, forwarded messages); the sums are taken in the same order as line by line.
     index: dict[str, int] = {}
     rows = [index.setdefault(prepare_line(x) + "\n", len(index)) for x in lines]
-    votes: list[dict[str, float]] = [{} for _ in index]    # fastText's labels ("__label__qnv") as they come
-    for m in models:
+    texts = list(index)
+    votes: list[dict[str, float]] = [{} for _ in texts]    # fastText's labels ("__label__qnv") as they come
+    scored = range(len(texts))                              # the lines every model so far has scored
+    for k, m in enumerate(models):
         n = _label_count(m)
         predict = m.f.predict
-        for v, x in zip(votes, index):
-            for p, lab in predict(x, n, 0.0, "strict"):
+        for j in scored:
+            v = votes[j]
+            for p, lab in predict(texts[j], n, 0.0, "strict"):
                 v[lab] = v.get(lab, 0) + p
+        if floor is not None and k + 1 < len(models):
+            scored = _can_reach(models, votes, scored, k + 1, language, floor)
     target = {lab: is_target(lab[9:], language) for lab in {lab for v in votes for lab in v}}
     total = np.array([sum(p for lab, p in v.items() if target[lab]) for v in votes], dtype=float)
     best = [max(sorted(v), key=v.get)[9:] if v else UND for v in votes]
     scores = np.minimum(total / len(models), 1.0)
+    if floor is not None:
+        dropped = np.ones(len(texts), dtype=bool)
+        dropped[list(scored)] = False
+        scores[dropped] = 0.0
+        best = [UND if d else b for d, b in zip(dropped, best)]
     return scores[rows] if rows else np.zeros(0), [best[r] for r in rows]
+
+
+def _can_reach(models: list, votes: list[dict[str, float]], lines, done: int, language: str,
+               floor: float) -> list[int]:
+    """The lines whose mean P(target) over all the models can still reach ``floor`` after the
+    first ``done`` models voted.  A model's P(target) is at most the sum of its probabilities
+    over all labels: 1 plus 1e-5 per label (fastText smooths each; measured here, two labels sum
+    to 1.00002); the bound allows twice that, and a margin."""
+    targets = frozenset().union(*(_labels(m, language)[1] for m in models))
+    most = 1.0 + 2e-5 * max(_label_count(m) for m in models[done:]) + 1e-6
+    need = floor * len(models) - most * (len(models) - done)
+    return [j for j in lines if sum(p for lab, p in votes[j].items() if lab in targets) >= need]
 
 
 def cross_validate(examples: list[tuple[str, str]], params: Params, language: str, workdir: Path,
@@ -511,7 +538,7 @@ def _code_switched(docs, plans, decided, letters, model, ctx: dict, params: Para
                     where.append((d, i))
     if not halves:
         return {}
-    scores, _ = target_scores(model, halves, ctx["language"])
+    scores, _ = target_scores(model, halves, ctx["language"], floor=ctx["threshold"])
     out = {}
     for n, key in enumerate(where):
         best = float(max(scores[2 * n], scores[2 * n + 1]))
