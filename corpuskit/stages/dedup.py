@@ -435,11 +435,8 @@ def near_duplicate_pairs(data, threshold: float, params: Params, engine=None,
             found.append(verify(data, pairs, threshold))
             accepted = np.union1d(accepted, found[-1][0] * len(data) + found[-1][1])
         left, right, sim = (np.concatenate(col) for col in zip(*found))
-        codes = left * len(data) + right
-        order = np.argsort(codes, kind="stable")
-        first = np.concatenate([[True], codes[order][1:] != codes[order][:-1]]) if len(codes) else np.zeros(0, bool)
-        chosen = order[first]
-        return NearPairs(left[chosen], right[chosen], sim[chosen]), (bands, rows)
+        order = np.argsort(left * len(data) + right)    # each pair once: a band's pairs are distinct
+        return NearPairs(left[order], right[order], sim[order]), (bands, rows)
     return NearPairs(*verify(data, candidate_pairs(data, eligible, bands, rows, engine), threshold)), (bands, rows)
 
 
