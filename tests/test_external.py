@@ -172,6 +172,58 @@ def test_near_duplicates_on_real_licence_texts(threshold, real_documents):
     assert len(truth) > 50 and recall >= 0.97 and precision == 1.0 and stated < 0.01
 
 
+def _partition_files(folder: Path, name: str, texts: list[str], params) -> tuple[Path, Path, list]:
+    """One partition's signature and fact files, as the stage writes them, and its n-gram sets."""
+    sets = minhash.shingles_of_texts(texts, params.ngram, params.shingle)
+    np.save(folder / f"{name}.npy", minhash.batch_signatures(sets, *minhash.permutations(params.num_perm)))
+    np.savez(folder / f"{name}.npz", ids=np.array([f"{name}:{i}" for i in range(len(texts))]),
+             n_shingles=np.array([len(x) for x in sets]), exact=np.arange(len(texts), dtype=np.uint64),
+             lengths=np.array([len(t) for t in texts]), sources=np.array(["s"] * len(texts)),
+             seg_hashes=np.zeros(len(texts), np.int64), seg_offsets=np.arange(len(texts) + 1))
+    return folder / f"{name}.npy", folder / f"{name}.npz", sets
+
+
+@pytest.mark.parametrize("banded", [False, True])
+def test_a_rerun_takes_earlier_verdicts_and_decides_as_a_fresh_run(banded, tmp_path, real_documents, monkeypatch):
+    """Real licence and copyright texts in four partitions.  The earlier run had three of them, one
+    since changed (another name); this run has them in another order and some documents alive
+    that were not (exact duplicates then).  Reusing the earlier verdicts gives exactly the pairs
+    of a fresh run, and verifies fewer."""
+    from corpuskit.storage import Cache
+    if banded:
+        monkeypatch.setattr(dedup, "BANDWISE_ABOVE", 0)
+    docs = real_documents[0]
+    params = dedup.Params(threshold=0.7)
+    texts = {f"sig-p{i}": docs[i::4] for i in range(4)}
+    texts["sig-p2-changed"] = texts["sig-p2"][:-3] + ["ŋɔ bɛ " * 40]
+    files = {name: _partition_files(tmp_path, name, t, params) for name, t in texts.items()}
+
+    def run(names, alive, known):
+        data = dedup.SignatureSet(params.num_perm, [files[n][0] for n in names], [files[n][1] for n in names], names)
+        sets = dedup.ShingleSets(sets=[s for n in names for s in files[n][2]])
+        checked = []
+
+        def verify(d, p, t):
+            checked.append(len(p))
+            return dedup.verify_exactly(d, sets, p, t)
+        pairs, _ = dedup.near_duplicate_pairs(data, params.threshold, params, alive=alive, verify=verify,
+                                              known=dedup.load_known_pairs(cache, "dedup", "v.npz", data) if known else None)
+        return data, pairs, sum(checked)
+
+    cache = Cache(tmp_path / "out")
+    rng = np.random.default_rng(7)
+    earlier = ["sig-p0", "sig-p1", "sig-p2"]
+    alive_then = rng.random(sum(len(texts[n]) for n in earlier)) > 0.1
+    data, pairs, _ = run(earlier, alive_then, known=False)
+    dedup.keep_known_pairs(cache, "dedup", "v.npz", data, dedup.eligible_rows(data, params, alive_then), pairs)
+    now = ["sig-p3", "sig-p1", "sig-p2-changed", "sig-p0"]
+    alive_now = rng.random(sum(len(texts[n]) for n in now)) > 0.1
+    _, fresh, fresh_checked = run(now, alive_now, known=False)
+    _, reused, reused_checked = run(now, alive_now, known=True)
+    assert len(pairs) > 20 and len(fresh) > 20 and list(reused) == list(fresh)
+    assert reused_checked < fresh_checked * 0.9, (reused_checked, fresh_checked)
+
+
 @pytest.fixture(scope="module")
 def real_documents():
     docs = _real_documents(whole=True) + _debian_copyright_files()

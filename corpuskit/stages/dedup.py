@@ -21,7 +21,7 @@ import hashlib
 import io
 import mmap
 import os
-from collections import defaultdict
+from collections import Counter, defaultdict
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -290,6 +290,11 @@ class SignatureSet:
     def __len__(self) -> int:
         return int(self.offsets[-1])
 
+    @property
+    def names(self) -> list[str]:
+        """The partitions' signature names (the files' names without ``.npy``)."""
+        return [Path(f).name[:-len(".npy")] for f in self.sig_files] if self._in_memory is None else ["memory"]
+
     def part_index(self, rows: np.ndarray) -> np.ndarray:
         return np.searchsorted(self.offsets, rows, side="right") - 1
 
@@ -411,33 +416,112 @@ class NearPairs:
 BANDS_AT_ONCE = 8   # band keys held at once when verifying band by band (8 bytes a document each)
 
 
+class KnownPairs:
+    """The verdicts of an earlier run over partitions this run still has, unchanged: a pair of
+    documents that were both eligible then would be verified again with the same result (their
+    signatures and n-gram sets are the same), so it is not; the pairs accepted then are taken
+    as they were.  ``old_row``: per row of this run, its row in the earlier run (-1: not there);
+    ``was_eligible``: per earlier row; ``left``, ``right``, ``similarity``: the earlier accepted
+    pairs, in earlier rows."""
+
+    def __init__(self, old_row: np.ndarray, was_eligible: np.ndarray, left: np.ndarray, right: np.ndarray,
+                 similarity: np.ndarray):
+        self.old_row, self.was_eligible = old_row, was_eligible
+        self.left, self.right, self.similarity = left, right, similarity
+
+    def settled(self, pairs: np.ndarray) -> np.ndarray:
+        """Per pair (rows of this run), whether the earlier run decided it."""
+        old = self.old_row[pairs]
+        known = (old >= 0).all(axis=1)
+        known[known] = self.was_eligible[old[known]].all(axis=1)
+        return known
+
+    def accepted(self, eligible: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The earlier accepted pairs whose documents are both here and eligible now, in this
+        run's rows (smaller first)."""
+        new_row = np.full(len(self.was_eligible), -1, dtype=np.int64)
+        here = np.flatnonzero(self.old_row >= 0)
+        new_row[self.old_row[here]] = here
+        a, b = new_row[self.left], new_row[self.right]
+        keep = (a >= 0) & (b >= 0)
+        keep[keep] = eligible[a[keep]] & eligible[b[keep]]
+        a, b = a[keep], b[keep]
+        return np.minimum(a, b), np.maximum(a, b), self.similarity[keep]
+
+
+def eligible_rows(data: "SignatureSet", params: Params, alive: np.ndarray | None = None) -> np.ndarray:
+    """Documents that take part in near-duplicate search: enough n-grams, and ``alive``."""
+    eligible = data.n_shingles >= params.min_shingles
+    return eligible & alive if alive is not None else eligible
+
+
 def near_duplicate_pairs(data, threshold: float, params: Params, engine=None,
-                         alive: np.ndarray | None = None, verify=None) -> tuple[NearPairs, tuple[int, int]]:
+                         alive: np.ndarray | None = None, verify=None,
+                         known: KnownPairs | None = None) -> tuple[NearPairs, tuple[int, int]]:
     """Candidate pairs that ``verify`` accepts (default: estimated Jaccard reaches ``threshold``;
-    ``verify_exactly`` for exact Jaccard), and the (bands, rows) used."""
+    ``verify_exactly`` for exact Jaccard), and the (bands, rows) used.  With ``known``, pairs the
+    earlier run decided are taken from it instead of verified again (the result is the same)."""
     verify = verify or (lambda d, p, t: verify_pairs(d, p, t))
     data = data if isinstance(data, SignatureSet) else SignatureSet.from_arrays(data["sigs"], data["n_shingles"])
-    eligible = data.n_shingles >= params.min_shingles
-    if alive is not None:
-        eligible &= alive
+    eligible = eligible_rows(data, params, alive)
     bands, rows = lsh_params(threshold, params.num_perm)
     idx = np.flatnonzero(eligible)
+    found = [known.accepted(eligible)] if known is not None else []
+
+    def unsettled(pairs: np.ndarray) -> np.ndarray:
+        return pairs[~known.settled(pairs)] if known is not None else pairs
+
     if len(idx) > BANDWISE_ABOVE and not (engine is not None and hasattr(engine, "frame_map")):
         # Band by band: only verified pairs are kept, never the whole candidate set (nor every
         # band's keys: they are computed BANDS_AT_ONCE at a time).  A near duplicate shares many
         # bands: a pair already accepted is not verified again.
-        found, accepted = [], np.zeros(0, dtype=np.int64)
+        accepted = np.unique(found[0][0] * len(data) + found[0][1]) if found else np.zeros(0, dtype=np.int64)
         for band in range(bands):
             if band % BANDS_AT_ONCE == 0:
                 keys = data.band_keys(idx, bands, rows, only=range(band, min(bands, band + BANDS_AT_ONCE)))
-            pairs = band_pairs(keys[:, band % BANDS_AT_ONCE], idx)
+            pairs = unsettled(band_pairs(keys[:, band % BANDS_AT_ONCE], idx))
             pairs = pairs[~np.isin(pairs[:, 0] * len(data) + pairs[:, 1], accepted)]
             found.append(verify(data, pairs, threshold))
             accepted = np.union1d(accepted, found[-1][0] * len(data) + found[-1][1])
-        left, right, sim = (np.concatenate(col) for col in zip(*found))
-        order = np.argsort(left * len(data) + right)    # each pair once: a band's pairs are distinct
-        return NearPairs(left[order], right[order], sim[order]), (bands, rows)
-    return NearPairs(*verify(data, candidate_pairs(data, eligible, bands, rows, engine), threshold)), (bands, rows)
+    else:
+        found.append(verify(data, unsettled(candidate_pairs(data, eligible, bands, rows, engine)), threshold))
+    left, right, sim = (np.concatenate(col) for col in zip(*found))
+    order = np.argsort(left * len(data) + right)    # each pair once: a band's pairs are distinct
+    return NearPairs(left[order], right[order], sim[order]), (bands, rows)
+
+
+def known_pairs_name(threshold: float, params: Params, exact: bool) -> str:
+    """The cache name under which a run keeps its verdicts for the next run with these settings."""
+    from ..codeversion import code_version
+    return "verdicts-" + stable_hash(VERSION, code_version(__name__), threshold, params.num_perm, params.ngram,
+                                     params.shingle, params.min_shingles, exact) + ".npz"
+
+
+def load_known_pairs(cache: Cache, stage: str, name: str, data: "SignatureSet") -> KnownPairs | None:
+    """The verdicts an earlier run kept under ``name``, mapped onto this run's rows through the
+    partitions' signature names (a partition whose input changed has another name)."""
+    if not cache.has_blob(stage, name):
+        return None
+    with np.load(cache.blob_path(stage, name)) as z:
+        names, offsets = z["names"].tolist(), z["offsets"]
+        was_eligible, left, right, similarity = z["eligible"], z["left"], z["right"], z["similarity"]
+    once = {n for n, c in Counter(names + data.names).items() if c == 2}     # in each run once
+    where = {n: i for i, n in enumerate(names) if n in once}
+    old_row = np.full(len(data), -1, dtype=np.int64)
+    for p, sig_name in enumerate(data.names):
+        q = where.get(sig_name)
+        if q is not None and offsets[q + 1] - offsets[q] == data.offsets[p + 1] - data.offsets[p]:
+            old_row[data.offsets[p]:data.offsets[p + 1]] = np.arange(offsets[q], offsets[q + 1])
+    return KnownPairs(old_row, was_eligible, left, right, similarity)
+
+
+def keep_known_pairs(cache: Cache, stage: str, name: str, data: "SignatureSet", eligible: np.ndarray,
+                     pairs: NearPairs) -> None:
+    """Keep this run's verdicts for the next (see ``KnownPairs``)."""
+    buf = io.BytesIO()
+    np.savez(buf, names=np.array(data.names, dtype=str), offsets=data.offsets, eligible=eligible,
+             left=pairs.left, right=pairs.right, similarity=pairs.similarity)
+    cache.put_blob(stage, name, buf.getvalue())
 
 
 def verify_pairs(data: SignatureSet, pairs: np.ndarray, threshold: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -515,9 +599,12 @@ def decide(services: Services, in_stage: str, parts, params: Params) -> Decision
     run_start = order[np.maximum.accumulate(np.where(first, np.arange(n), 0))] if n else order
     reason[order[~first]], twin[order[~first]], similarity[order[~first]] = 1, run_start[~first], 1.0
     shingles = data.shingles()
+    verdicts = known_pairs_name(params.threshold, params, exact=True)
     pairs, (bands, rows) = near_duplicate_pairs(data, params.threshold, params, services.engine,
                                                 alive=reason == 0,
-                                                verify=lambda d, p, t: verify_exactly(d, shingles, p, t))
+                                                verify=lambda d, p, t: verify_exactly(d, shingles, p, t),
+                                                known=load_known_pairs(services.cache, "dedup", verdicts, data))
+    keep_known_pairs(services.cache, "dedup", verdicts, data, eligible_rows(data, params, reason == 0), pairs)
     keep_order = np.lexsort(tuple(reversed(ranks))) if n else np.zeros(0, np.int64)
     near_twin, near_sim = keep_order_removals(n, pairs, keep_order)
     gone = np.flatnonzero(near_twin >= 0)

@@ -65,9 +65,11 @@ def assign(clusters: list[list[int]], names: list[str], ratios: dict, seed: int)
 def decide(services: Services, in_stage: str, parts, params: Params) -> Decisions:
     dparams = services.recipe.stages["dedup"]
     data = dedup.load_signatures(services, "split", in_stage, parts, dparams, _dedup_signatures(services, in_stage, dparams))
-    pairs, _ = dedup.near_duplicate_pairs(data, params.leak_threshold,
-                                          dparams.__class__(**{**dparams.__dict__, "min_shingles": 1}),
-                                          services.engine)
+    near = dparams.__class__(**{**dparams.__dict__, "min_shingles": 1})
+    verdicts = dedup.known_pairs_name(params.leak_threshold, near, exact=False)
+    pairs, _ = dedup.near_duplicate_pairs(data, params.leak_threshold, near, services.engine,
+                                          known=dedup.load_known_pairs(services.cache, "split", verdicts, data))
+    dedup.keep_known_pairs(services.cache, "split", verdicts, data, dedup.eligible_rows(data, near), pairs)
     clustered = dedup.clusters_from_pairs(len(data), pairs)
     members = np.array([i for c in clustered for i in c], dtype=np.int64)
     name_of = dict(zip(members.tolist(), data.ids(members)))
