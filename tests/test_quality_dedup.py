@@ -276,6 +276,32 @@ def _signature_files(tmp_path, sizes, num_perm=32, seed=5):
     return sig_files, fact_files, np.concatenate(all_sigs), facts
 
 
+@pytest.mark.parametrize("threshold", [0.3, 0.5, 0.52, 0.7])
+def test_verifying_on_the_lowest_bytes_first_keeps_every_pair_the_full_comparison_keeps(threshold):
+    """Pairs whose values agree often in the lowest byte but differ above it are the hard case
+    for the byte-wise first pass: the result must equal comparing the whole values."""
+    from corpuskit.stages import dedup
+    rng = np.random.default_rng(11)
+    base = rng.integers(0, 2**32, (400, 128), dtype=np.uint64).astype(np.uint32)
+    twin = base.copy()
+    same = rng.random(base.shape) < rng.random((400, 1))                   # share of equal values per row
+    low_only = ~same & (rng.random(base.shape) < rng.random((400, 1)) ** 3)  # equal lowest byte only
+    twin[~same] = rng.integers(0, 2**32, int((~same).sum()), dtype=np.uint64).astype(np.uint32)
+    twin[low_only] = (twin[low_only] & np.uint32(0xFFFFFF00)) | (base[low_only] & np.uint32(0xFF))
+    twin[low_only] ^= np.uint32(0x100) * (twin[low_only] == base[low_only])  # and really differ
+    sigs = np.concatenate([base, twin])
+    pairs = np.stack([np.arange(400), np.arange(400) + 400], axis=1).astype(np.int64)
+    pairs = np.concatenate([pairs, rng.integers(0, 800, (5000, 2))])
+    estimates = (sigs[pairs[:, 0]] == sigs[pairs[:, 1]]).mean(axis=1)
+    left, right, est = dedup.verify_pairs(dedup.SignatureSet.from_arrays(sigs), pairs, threshold)
+    keep = estimates >= threshold
+    assert 20 < keep.sum() < 400
+    close = (estimates >= threshold) & (estimates < threshold + 0.02)     # just at the threshold
+    assert close.sum() >= 3, close.sum()
+    assert np.array_equal(left, pairs[keep, 0]) and np.array_equal(right, pairs[keep, 1])
+    assert np.array_equal(est, estimates[keep])
+
+
 def test_signature_set_reads_partition_files_like_one_array(tmp_path):
     from corpuskit.stages import dedup
     sig_files, fact_files, sigs, facts = _signature_files(tmp_path, [7, 0, 12, 5])
