@@ -59,12 +59,32 @@ def _direct_imports(name: str) -> tuple[str, ...]:
     spec = importlib.util.find_spec(name)
     package = name if spec.submodule_search_locations else name.rpartition(".")[0]
     found: list[str] = []
-    for node in ast.walk(ast.parse(Path(spec.origin).read_text("utf-8"))):
+    for node in _run_time_nodes(ast.parse(Path(spec.origin).read_text("utf-8"))):
         if isinstance(node, ast.ImportFrom):
             found += _resolve(name, package, node)
         elif isinstance(node, ast.Import):
             found += [a.name for a in node.names if a.name.startswith(PACKAGE)]
     return tuple(found)
+
+
+def _run_time_nodes(tree: ast.Module):
+    """Every node of a module but those under ``if TYPE_CHECKING:`` (imports for type checkers,
+    which never run) and in a module-level ``__getattr__`` (PEP 562: what a package loads when an
+    attribute it lacks is asked for, such as corpuskit's public API; ``from corpuskit import
+    transliterate`` loads the submodule, not that)."""
+    todo = [n for n in tree.body if not (isinstance(n, ast.FunctionDef) and n.name == "__getattr__")]
+    while todo:
+        node = todo.pop()
+        yield node
+        if isinstance(node, ast.If) and _names_type_checking(node.test):
+            todo += node.orelse
+        else:
+            todo += ast.iter_child_nodes(node)
+
+
+def _names_type_checking(test: ast.expr) -> bool:
+    return (isinstance(test, ast.Name) and test.id == "TYPE_CHECKING") or \
+        (isinstance(test, ast.Attribute) and test.attr == "TYPE_CHECKING")
 
 
 @lru_cache(maxsize=None)

@@ -154,3 +154,16 @@ def test_cache_keys_follow_the_code_of_helper_modules():
     assert "corpuskit.variants_table" in imported_modules("corpuskit.stages.variants")
     assert "corpuskit.pii" in imported_modules("corpuskit.stages.qualityfilter")
     assert code_version("corpuskit.stages.script") != code_version("corpuskit.stages.dedup")
+
+
+def test_cache_keys_do_not_follow_imports_that_never_run():
+    """Ingest names the recipe module for a type checker only, and ``from .. import transliterate``
+    runs the package's ``__init__`` but not the public API its ``__getattr__`` loads on demand:
+    editing the export or the audit must not make every earlier stage's results stale."""
+    from corpuskit.codeversion import imported_modules
+    for stage in ("ingest", "clean", "normalise", "script", "variants", "langid", "qualityfilter", "dedup", "split"):
+        modules = imported_modules(f"corpuskit.stages.{stage}")
+        assert not modules & {"corpuskit.recipe", "corpuskit.api", "corpuskit.runner", "corpuskit.stages.export",
+                              "corpuskit.audit"}, stage
+    assert {"corpuskit.readers.webvtt", "corpuskit.records"} <= imported_modules("corpuskit.stages.ingest")
+    assert "corpuskit.audit" in imported_modules("corpuskit.stages.export_pieces")
