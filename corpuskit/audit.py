@@ -29,7 +29,7 @@ import regex
 from .casing import comparison_key
 from .pii import may_hold_personal_data, scrub
 
-__all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files", "scan_files"]
+__all__ = ["LEAK_MIN_CHARS", "leak_key", "Hit", "LeakAudit", "PUBLIC_PARTS", "public_files", "scan_files", "scan_piece"]
 
 LEAK_MIN_CHARS = 20          # shorter restricted segments ("ok", "thank you") are not tracked
 LEAK_PREFIX_CHARS = 40       # a report cell shorter than a restricted segment is a leak from this length on
@@ -43,6 +43,8 @@ _TAG = regex.compile(r"<[^>]*>")
 MEMO_CHARS = 200             # strings up to this long are judged once per audit ...
 MEMO_SIZE = 200_000          # ... remembering at most this many at a time
 CLEAN_LINES_SIZE = 500_000   # hashes of lines without a hit remembered per kind of line (about 30 MB)
+FIELD_STRING_MIN_CHARS = 3  # shorter strings hold no name (LeakAudit keeps names of 3 or more characters)
+                            # and no restricted text (LEAK_MIN_CHARS)
 _NUMBER = regex.compile(r"^-?\d+(?:\.\d+)?(?:e-?\d+)?$")
 
 
@@ -82,6 +84,7 @@ class LeakAudit:
     scrub_pii: bool = True
     _memo: dict = field(default_factory=dict, init=False, repr=False, compare=False)
     _clean_lines: dict = field(default_factory=dict, init=False, repr=False, compare=False)
+    field_strings: set | None = field(default=None, init=False, repr=False, compare=False)  # collected when a set
     hits: list[Hit] = field(default_factory=list)
 
     def __post_init__(self):
@@ -181,15 +184,19 @@ class LeakAudit:
         return self.hits
 
     def _scan_records(self, path: Path, rel: str) -> None:
-        clean = self._clean("record")
         with gzip.open(path, "rt", encoding="utf-8", newline="\n") as f:
-            for n, line in enumerate(f, 1):
-                key = hash(line)
-                if key in clean:
-                    continue
-                before = len(self.hits)
-                self._scan_record(json.loads(line), rel, n)
-                self._remember_clean(clean, key, before)
+            self.scan_record_lines(f, rel)
+
+    def scan_record_lines(self, lines: Iterable[str], rel: str) -> None:
+        """Scan JSON Lines records (the lines of ``rel``, numbered from 1)."""
+        clean = self._clean("record")
+        for n, line in enumerate(lines, 1):
+            key = hash(line)
+            if key in clean:
+                continue
+            before = len(self.hits)
+            self._scan_record(json.loads(line), rel, n)
+            self._remember_clean(clean, key, before)
 
     def _scan_record(self, record: dict, rel: str, n: int) -> None:
         """The checks on one corpus record (line ``n`` of ``rel``)."""
@@ -210,6 +217,8 @@ class LeakAudit:
             for text in texts:                               # a field's repeated values once
                 for kind in self._verdict(text, False, False):
                     self.hits.append(Hit(rel, n, kind, key))
+                if self.field_strings is not None and len(text) >= FIELD_STRING_MIN_CHARS:
+                    self.field_strings.add(text)
 
     def _scan_csv(self, path: Path, rel: str) -> None:
         with open(path, encoding="utf-8", newline="") as f:
@@ -226,18 +235,47 @@ class LeakAudit:
             self.check(text, rel, 1)
 
     def _scan_lines(self, path: Path, rel: str, segments: bool = False, html_text: bool = False) -> None:
-        clean = self._clean(f"lines:{segments}:{html_text}")
         with open(path, encoding="utf-8", newline="\n") as f:
-            for n, line in enumerate(f, 1):
-                if html_text:
-                    line = html.unescape(_TAG.sub(" ", _DATA_URI.sub(" ", line)))
-                if not line.strip():
-                    continue
-                key = hash(line)
-                if key not in clean:
-                    before = len(self.hits)
-                    self.check(line.rstrip("\n"), rel, n, segment=segments)
-                    self._remember_clean(clean, key, before)
+            self.scan_text_lines(f, rel, segments, html_text)
+
+    def scan_text_lines(self, lines: Iterable[str], rel: str, segments: bool = False, html_text: bool = False) -> None:
+        """Scan lines of text (of ``rel``, numbered from 1); ``segments``: each line is segment text."""
+        clean = self._clean(f"lines:{segments}:{html_text}")
+        for n, line in enumerate(lines, 1):
+            if html_text:
+                line = html.unescape(_TAG.sub(" ", _DATA_URI.sub(" ", line)))
+            if not line.strip():
+                continue
+            key = hash(line)
+            if key not in clean:
+                before = len(self.hits)
+                self.check(line.rstrip("\n"), rel, n, segment=segments)
+                self._remember_clean(clean, key, before)
+
+    # -- in two steps: what one piece of the corpus holds, then what depends on the whole run ---
+    def field_verdicts(self, strings: Iterable[str]) -> list[str]:
+        """Of the strings of records' fields (not segment text), those holding restricted text or
+        a real name: the checks that depend on the whole run (``scan`` makes them on every field
+        value as it reads it)."""
+        return [text for text in strings
+                if (self.restricted_texts and self._restricted(text))
+                or (self._names is not None and self._names.search(text))]
+
+
+def scan_piece(records: dict[str, list[str]], texts: dict[str, str], restricted_sources: Iterable[str],
+               id_patterns: tuple = (), regions: tuple = (), scrub_pii: bool = True) -> tuple[list[Hit], list[str]]:
+    """The checks on one piece of the public record and text files that depend on the piece
+    alone: personal data anywhere and records of restricted sources (``records``: the JSON lines
+    per file label; ``texts``: the text per file label).  Returns the hits and, sorted, the
+    distinct strings of the records' other fields (``FIELD_STRING_MIN_CHARS`` or longer), which
+    ``LeakAudit.field_verdicts`` checks against the whole run's restricted text and names."""
+    checker = LeakAudit([], [], set(restricted_sources), None, tuple(id_patterns), tuple(regions), scrub_pii)
+    checker.field_strings = set()
+    for label, lines in records.items():
+        checker.scan_record_lines(lines, label)
+    for label, text in texts.items():
+        checker.scan_text_lines(io.StringIO(text, newline="\n"), label, segments=True)
+    return checker.hits, sorted(checker.field_strings)
 
 
 def scan_files(checker: LeakAudit, out: Path, files: list[Path]) -> list[Hit]:

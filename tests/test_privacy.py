@@ -8,7 +8,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from corpuskit.api import run
-from corpuskit.audit import LeakAudit, leak_key
+from corpuskit.audit import LeakAudit, leak_key, scan_piece
 from corpuskit.errors import DataError, RecipeError
 from corpuskit.pack import pack
 from corpuskit.people import pseudonym
@@ -236,6 +236,52 @@ def test_a_leak_repeated_in_the_split_files_is_reported_in_each(tmp_path, monkey
         ("corpus/corpus-00000.jsonl.gz", 2, "personal-data:phone"), ("corpus/corpus.txt", 2, "personal-data:phone"),
         ("splits/train.jsonl.gz", 1, "personal-data:phone"), ("splits/train.txt", 1, "personal-data:phone")]
     assert judged == [("corpus/corpus-00000.jsonl.gz", 1), ("corpus/corpus-00000.jsonl.gz", 2), ("splits/train.jsonl.gz", 1)]
+
+
+def test_a_piece_scanned_alone_then_checked_against_the_run_finds_what_the_file_scan_finds(tmp_path):
+    """Export audits each piece of the record files when it builds it (what depends on the piece
+    alone) and checks its field strings against the run's restricted text and names later."""
+    restricted_segment = "Selka said the river crossing opens before the rains come"
+    records = [json.dumps({"id": "web:1", "source": "web", "segments": ["kema tabu"], "meta": {"note": "ask +254 712 345678"}}),
+               json.dumps({"id": "web:Selka Moru visit.txt:1", "source": "web", "segments": ["Selka Moru came"]}),
+               json.dumps({"id": "chat:9", "source": "chat", "segments": ["x"]}),
+               json.dumps({"id": "web:3", "source": "web", "segments": ["kema"], "meta": {"title": restricted_segment}}),
+               json.dumps({"id": "web:4", "source": "web", "segments": ["call +254 712 345678"], "meta": {"n": 2}})]
+    text = "kema tabu\n\nSelka Moru came\ncall +254 712 345678\n"
+    names, restricted = ["Selka Moru"], [leak_key(restricted_segment)]
+    whole = _audit_folder(tmp_path, {"corpus/corpus-00000.jsonl.gz": "\n".join(records) + "\n", "corpus/corpus.txt": text})
+    local, strings = scan_piece({"corpus/corpus-00000.jsonl.gz": records}, {"corpus/corpus.txt": text}, {"chat"})
+    run_wide = LeakAudit(restricted, names, {"chat"}).field_verdicts(strings)
+    assert sorted((h.file, h.line, h.kind) for h in whole) == [
+        ("corpus/corpus-00000.jsonl.gz", 1, "personal-data:phone"), ("corpus/corpus-00000.jsonl.gz", 2, "real-name"),
+        ("corpus/corpus-00000.jsonl.gz", 3, "restricted-source"), ("corpus/corpus-00000.jsonl.gz", 4, "restricted-text"),
+        ("corpus/corpus-00000.jsonl.gz", 5, "personal-data:phone"), ("corpus/corpus.txt", 4, "personal-data:phone")]
+    assert local == [h for h in whole if h.kind not in ("real-name", "restricted-text")]
+    assert run_wide == sorted(["web:Selka Moru visit.txt:1", restricted_segment])
+    assert "Selka Moru came" not in strings and "web:1" in strings and "ask +254 712 345678" in strings
+
+
+def test_a_reused_piece_is_audited_against_names_a_later_source_brings(tmp_path):
+    """A document id holds a name no source has named yet: the run passes.  A message from a
+    sender of that name arrives; the re-run reuses the document's export piece, and its audit
+    still finds the real name, as a fresh run on the same input does."""
+    recipe = copy_demo(tmp_path)
+    web = tmp_path / "sample_texts" / "web"
+    (web / "page-002.txt").rename(web / "visit-of-oraneth.txt")
+    run(recipe, tmp_path / "out", workers=1)
+    pieces = tmp_path / "out" / ".cache" / "export"
+    before = {p.name for p in pieces.glob("doc-*.bin")}
+    messages = tmp_path / "sample_texts" / "messages" / "river-group.txt"
+    lines = messages.read_text("utf-8").splitlines(keepends=True)
+    lines[2] = lines[2].replace("] Doru:", "] Oraneth:")
+    messages.write_text("".join(lines), "utf-8")
+    for out in ("out", "fresh"):
+        with pytest.raises(DataError, match=r"corpus/corpus-\d+\.jsonl\.gz line \d+ \(id\): a real name"):
+            run(recipe, tmp_path / out, workers=1)
+    after = {p.name for p in pieces.glob("doc-*.bin")}
+    assert len(after - before) < len(before)          # most pieces were reused
+    reports = [json.loads((tmp_path / out / "private" / "leak-audit.json").read_text()) for out in ("out", "fresh")]
+    assert reports[0] == reports[1] and {h["kind"] for h in reports[0]["hits"]} == {"real-name"}
 
 
 def test_leak_audit_passes_clean_files(tmp_path):

@@ -195,18 +195,18 @@ def write_outputs(services: Services, in_stage: str, parts, reports) -> ExportRe
     split_docs = {name: sum(s["files"].get(name, 0) for s in summaries) for name in SPLITS}
     _join_ledger(out / "private" / "ledger.jsonl.gz", cache, ledger_pieces, doc_pieces, summaries)
 
-    # The leak audit of the corpus and split files (final from here on) on a worker, meanwhile.
-    people = _write_private(out, m.people, secret)
-    checker = _leak_checker(cache, doc_pieces, summaries, people, recipe)
-    record_files = [p for p in public_files(out) if p.relative_to(out).parts[0] in ("corpus", "splits")]
-    records_audit = services.start(audit.scan_files, checker, out, record_files)
-
     # Tokenizer on a sample of the public train split (on a worker), report on the dev split.
     lines = _sample_lines(cache, doc_pieces, summaries, samples)
     dev = {g.split(":", 1)[1]: v for g, v in lines.items() if g.startswith("dev:")}
     train_by_dialect = {g.split(":", 1)[1]: v for g, v in lines.items() if g.startswith("train:")}
     finish_tokenizer = _tokenizer(services, params, lines.get("train", []), dev or train_by_dialect,
                                   "dev" if dev else "train")
+
+    # The leak audit of the corpus and split files (final from here on), meanwhile.
+    people = _write_private(out, m.people, secret)
+    checker = _leak_checker(cache, doc_pieces, summaries, people, recipe)
+    record_files = [p for p in public_files(out) if p.relative_to(out).parts[0] in ("corpus", "splits")]
+    records_audit = _records_audit(services, checker, doc_pieces, summaries, record_files)
     plots = balance.plots(stats)          # meanwhile, in this process
     tok_info = finish_tokenizer()
     used = tok_info["summary"].get("vocab_used")
@@ -339,10 +339,28 @@ def _leak_checker(cache, names: list[str], summaries: list[dict], people: dict[s
                            tuple(fparams.id_patterns), tuple(recipe.corpus.regions), fparams.pii != "keep")
 
 
+def _records_audit(services: Services, checker, names: list[str], summaries: list[dict], record_files: list[Path]):
+    """The leak audit of the corpus and split files, which hold the pieces' public sections byte
+    for byte.  Each piece made the checks that depend on it alone when it was built (personal
+    data, records of restricted sources) and kept the strings of its records' other fields; if
+    no piece found anything and none of those strings holds restricted text or a real name of
+    this run, the files are clean (None).  Otherwise they are scanned whole, on a worker, to name
+    the file and line of every hit."""
+    if all(s["audit_clean"] for s in summaries) and not any(
+            checker.field_verdicts(_field_strings(services.cache, name, s)) for name, s in zip(names, summaries)):
+        return None
+    return services.start(audit.scan_files, checker, services.out, record_files)
+
+
+def _field_strings(cache, name: str, summary: dict) -> list[str]:
+    path, sections = cache.blob_path("export", f"{name}.bin"), summary["sections"]
+    return unpack_texts(read_section(path, sections["audit.lengths"]), read_section(path, sections["audit.strings"]))
+
+
 def _leak_audit(out: Path, checker, records_audit, record_files: list[Path]) -> list:
-    """Every public file scanned: the corpus and split files by ``records_audit`` (begun on a
-    worker), the rest here; the hits in file order, also in private/leak-audit.json."""
-    hits = list(records_audit.result())
+    """Every public file scanned: the corpus and split files by ``records_audit`` (None: found
+    clean piece by piece), the rest here; the hits in file order, also in private/leak-audit.json."""
+    hits = list(records_audit.result()) if records_audit is not None else []
     scanned = set(record_files)
     hits += audit.scan_files(checker, out, [p for p in public_files(out) if p not in scanned])
     audit.write_report(out / "private" / "leak-audit.json", hits)
@@ -438,7 +456,7 @@ def merge_pieces(services: Services, doc_pieces: list[str], ledger_pieces: list[
             m.ledger.merge(stage, cache.get_json("export", f"{name}.json"))
     for name in doc_pieces:
         summary = {**cache.get_json("export", f"{name}.json"), "_bin": f"{name}.bin"}
-        m.summaries.append({k: summary[k] for k in ("files", "sections", "sample_groups", "_bin")})
+        m.summaries.append({k: summary[k] for k in ("files", "sections", "sample_groups", "_bin", "audit_clean")})
         m.counts = m.counts.add(Counts.from_dict(summary["counts"]))
         for source, tally in summary["by_source"].items():
             m.by_source.setdefault(source, Counter()).update(tally)

@@ -21,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ..audit import LEAK_MIN_CHARS, LEAK_PREFIX_CHARS, leak_key
+from ..audit import LEAK_MIN_CHARS, LEAK_PREFIX_CHARS, leak_key, scan_piece
 from ..ledger import Counts, remove_document
 from ..people import pseudonymise_document
 from ..records import jsonable
@@ -31,7 +31,7 @@ from .split import SPLITS
 __all__ = ["PieceSettings", "LedgerSettings", "document_piece_task", "ledger_piece_task", "LedgerSummary",
            "ReviewPool", "SampleMerger", "shard_groups", "join_sections", "read_section", "pack_texts", "unpack_texts"]
 
-VERSION = "5"
+VERSION = "6"
 STAGE = "export"
 
 
@@ -155,11 +155,20 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
                 samples[g].append((priority, seg))
     inventory.add_many(inventory_docs)
     sections = PieceFile()
-    files = {}
+    files, texts = {}, {}
     for target, recs in records.items():
+        texts[target] = "\n".join(lines[target])
         sections.add(f"{target}.jsonl.gz", gzip.compress(("\n".join(recs) + "\n").encode("utf-8"), compresslevel=6, mtime=0))
-        sections.add(f"{target}.txt", "\n".join(lines[target]).encode("utf-8"))
+        sections.add(f"{target}.txt", texts[target].encode("utf-8"))
         files[target] = len(recs)
+    # The leak audit's checks that depend on this piece alone, on the very lines the public files get.
+    public = [t for t in records if t != "restricted"]
+    ls = settings.ledger
+    audit_hits, field_strings = scan_piece({t: records[t] for t in public}, {t: texts[t] for t in public},
+                                           ls.not_public, ls.id_patterns, ls.regions, ls.scrub_pii)
+    string_lengths, strings = pack_texts(field_strings)
+    sections.add("audit.lengths", string_lengths)
+    sections.add("audit.strings", strings)
     sample_groups, priorities, texts = {}, [], []
     for g in sorted(samples):
         limit = settings.sample_lines["train" if g == "train" else g.split(":", 1)[0] + ":"]
@@ -181,7 +190,8 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
                "split_counts": [[d, s, n, segs] for (d, s), (n, segs) in sorted(split_counts.items())],
                "stats": stats.state(), "scripts": inventory.state(), "review": review.best() if review.threshold is not None else [],
                "sample_groups": sample_groups, "sections": sections.index, "ledger": ledger,
-               "people": dict(sorted(people.items())), "restricted_texts": sorted(restricted_texts)}
+               "people": dict(sorted(people.items())), "restricted_texts": sorted(restricted_texts),
+               "audit_clean": not audit_hits}
     cache.put_json(STAGE, f"{name}.json", summary)
     return name
 
