@@ -155,16 +155,16 @@ def document_piece_task(cache_root: str, in_stage: str, key: str, settings: Piec
                 samples[g].append((priority, seg))
     inventory.add_many(inventory_docs)
     sections = PieceFile()
-    files, texts = {}, {}
+    files, text_of = {}, {}
     for target, recs in records.items():
-        texts[target] = "\n".join(lines[target])
+        text_of[target] = "\n".join(lines[target])
         sections.add(f"{target}.jsonl.gz", gzip.compress(("\n".join(recs) + "\n").encode("utf-8"), compresslevel=6, mtime=0))
-        sections.add(f"{target}.txt", texts[target].encode("utf-8"))
+        sections.add(f"{target}.txt", text_of[target].encode("utf-8"))
         files[target] = len(recs)
     # The leak audit's checks that depend on this piece alone, on the very lines the public files get.
     public = [t for t in records if t != "restricted"]
     ls = settings.ledger
-    audit_hits, field_strings = scan_piece({t: records[t] for t in public}, {t: texts[t] for t in public},
+    audit_hits, field_strings = scan_piece({t: records[t] for t in public}, {t: text_of[t] for t in public},
                                            ls.not_public, ls.id_patterns, ls.regions, ls.scrub_pii)
     string_lengths, strings = pack_texts(field_strings)
     sections.add("audit.lengths", string_lengths)
